@@ -1,0 +1,514 @@
+"""Steady 1D two-phase model of one monolith brick, solved by Newton on the whole brick.
+
+Balances per finite volume j (width dz, upwind: the cell takes its outlet state), after MODEL.md
+section 6 and the textbook two-phase channel model (e.g. Froment, Bischoff & De Wilde 2011, ch. 11):
+
+* gas molar flows (all species; stored NH3 counted as NH3, so N/H/O balance exactly)::
+
+      F_j - F_{j-1} = sum_r nu_equiv[r] xi_r ,      xi_r = A_f dz f_layer <eta_r r_r>   [mol/s]
+
+* film = reaction for each species that enters a rate (surface node, or every node of a resolved
+  layer with diffusion between nodes)::
+
+      a A_f dz k_m,i (c_i - c_s,i) = - sum_r nu_gas[r, i] xi_r ,   k_m,i = Sh D_i / d_h
+
+* NH3 coverage at steady state, per site::   sum_r nu_site[r] r_r = 0
+* gas energy::   F c_p (T_g,j - T_g,j-1) = h a A_f dz (T_s - T_g)
+* solid energy::  h a A_f dz (T_g - T_s) + sum_r (-dH_r) xi_r - U pi D dz (T_s - T_amb) = 0
+
+The unknowns of all cells are solved together by Newton's method. The Jacobian is block lower
+bidiagonal along the brick: each cell's own block is formed by forward differences that perturb
+one unknown in every cell at once (vectorised; the upstream coupling is linear and analytic), and
+the system is solved by a batched block inverse plus a short recurrence on the gas unknowns.
+A pseudo-transient continuation (implicit Euler on coverage and solid temperature, with a growing
+step) carries the solution from a crude start into Newton's convergence basin.
+
+Internal diffusion: ``effectiveness`` mode multiplies the rates whose ``diffusion_key`` is species
+k by eta_k = tanh(phi)/phi, phi = delta sqrt(k_v / D_eff,k), k_v = sum_r |nu_equiv[r,k]| r_r / c_s,k
+(Thiele 1939; Aris 1975, *The Mathematical Theory of Diffusion and Reaction in Permeable
+Catalysts*); ``resolved`` mode puts finite volumes across every layer with flux continuity between
+layers and no flux at the wall.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import transport
+from .brick import Brick
+from .errors import ConvergenceError
+from .gas import GasProperties
+from .species import ELEMENT_MATRIX, INDEX, SPECIES
+from .stream import Stream
+from .units import R_GAS
+
+__all__ = ["BrickSolution", "solve_brick", "SolverSettings"]
+
+NSP = len(SPECIES)
+
+
+@dataclass
+class SolverSettings:
+    """Tolerances and limits of the steady solver (all residuals are scaled, see below).
+
+    Scaled residuals: species flows / inlet total flow [-]; temperatures [K]; film balances /
+    (k_m c_total) [-]; coverage balances / capacity [1/s].
+    """
+    tol: float = 1e-10
+    max_newton: int = 40
+    max_ptc_steps: int = 200
+    tau0: float = 1e-3           # first pseudo-time step [s]
+    fd_step: float = 1e-7
+
+
+@dataclass
+class BrickSolution:
+    """Steady state of one brick: outlet stream, axial profiles and solver status."""
+    brick: Brick
+    inlet: Stream
+    outlet: Stream
+    z: np.ndarray                      # cell centres [m]
+    F: np.ndarray                      # [ncell, nsp] molar flows at cell outlets [mol/s]
+    T_gas: np.ndarray                  # [ncell] [K]
+    T_solid: np.ndarray                # [ncell] [K]
+    coverage: np.ndarray               # [ncell, nnode, nsite] NH3 coverage [-]
+    c_surface: np.ndarray              # [ncell, nnode, nspecies-in-rates] [mol/m^3]
+    film_species: list[str]
+    node_layer: np.ndarray             # [nnode] layer index of each washcoat node
+    extents: list[np.ndarray]          # per layer [ncell, nrxn] reaction extents [mol/s]
+    dp: transport.PressureDrop
+    converged: bool
+    residual: float
+    iterations: int
+    element_balance_error: float
+    seconds: float
+    notes: list[str] = field(default_factory=list)
+    state: np.ndarray | None = None    # solver unknowns, for warm starts
+
+    def ppm_profile(self, species: str) -> np.ndarray:
+        """Wet ppm of ``species`` at every cell outlet."""
+        return self.F[:, INDEX[species]] / self.F.sum(axis=1) * 1e6
+
+
+def _log_mean_pos(a, b):
+    """Logarithmic mean of positive a, b (the arithmetic mean where they nearly agree)."""
+    a = np.maximum(a, 1e-300)
+    b = np.maximum(b, 1e-300)
+    close = np.abs(a - b) <= 1e-6 * (a + b)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lm = (a - b) / np.log(a / b)
+    return np.where(close, 0.5 * (a + b), lm)
+
+
+def cell_mean(c_in, c_out):
+    """Mean concentration over a cell: log mean where it falls, arithmetic mean where it rises."""
+    return np.where(c_out < c_in, _log_mean_pos(c_in, c_out), 0.5 * (c_in + c_out))
+
+
+def signed_log_mean(d_in, d_out):
+    """Log mean of two differences of one sign (LMTD); arithmetic mean if the sign changes."""
+    same = d_in * d_out > 0
+    lm = np.sign(d_in) * _log_mean_pos(np.abs(d_in), np.abs(d_out))
+    return np.where(same, lm, 0.5 * (d_in + d_out))
+
+
+class _BrickModel:
+    """Index bookkeeping and the residual of one brick at one inlet state."""
+
+    def __init__(self, brick: Brick, inlet: Stream):
+        self.brick, self.inlet = brick, inlet
+        sub = brick.substrate
+        self.n = int(brick.cells)
+        self.mechs = [c.mechanism for c in brick.catalysts]
+        self.film = sorted(set().union(*[m.film_species for m in self.mechs]))
+        self.nf = len(self.film)
+        self.ns = max([len(m.sites) for m in self.mechs] + [0])
+        resolved = brick.washcoat == "resolved"
+        self.resolved = resolved
+        # washcoat nodes: layer index, thickness [m], brick volume fraction
+        node_layer, node_dx, node_frac = [], [], []
+        for k, (depth, frac) in enumerate(zip(sub.layer_depths, sub.layer_volume_fractions)):
+            nn = int(brick.nodes_per_layer) if resolved else 1
+            node_layer += [k] * nn
+            node_dx += [depth / nn] * nn
+            node_frac += [frac / nn] * nn
+        self.node_layer = np.array(node_layer)
+        self.node_dx = np.array(node_dx)
+        self.node_frac = np.array(node_frac)
+        self.nnode = len(node_layer)
+        self.layer_nodes = [np.nonzero(self.node_layer == k)[0] for k in range(len(self.mechs))]
+        self.depths = np.array(sub.layer_depths)
+        # unknown layout per cell
+        self.iTg, self.iTs = NSP, NSP + 1
+        self.ic0 = NSP + 2
+        self.ith0 = self.ic0 + self.nnode * self.nf
+        self.nv = self.ith0 + self.nnode * self.ns
+        # geometry and flow
+        self.A = brick.frontal_area
+        self.dz = brick.length / self.n
+        self.z_edges = np.linspace(0.0, brick.length, self.n + 1)
+        self.a = sub.gsa
+        self.d_h = sub.d_h
+        self.A_ht = self.a * self.A * self.dz           # film area per cell [m^2]
+        self.gas = GasProperties.from_flows(inlet.F, p=inlet.p)
+        self.p = inlet.p
+        self.F_in_tot = inlet.total
+        self.cp_ref = float(self.gas.cp_molar(inlet.T))
+        self.notes: list[str] = []
+        self._transfer_numbers(inlet)
+        self.loss_UA = brick.heat_loss_W_m2K * np.pi * brick.diameter * self.dz
+        # capacities, padded
+        self.cap = np.ones((self.nnode, max(self.ns, 1)))
+        self.site_used = np.zeros((self.nnode, max(self.ns, 1)), dtype=bool)
+        for k, m in enumerate(self.mechs):
+            for s in range(len(m.sites)):
+                self.cap[self.layer_nodes[k], s] = m.capacity[s]
+                self.site_used[self.layer_nodes[k], s] = True
+        self.cap = self.cap[:, : self.ns]
+        self.site_used = self.site_used[:, : self.ns]
+        # film-species columns in each layer's full species vector
+        self.film_idx = np.array(self.film, dtype=int)
+        self.nu_gas_f = [m.nu_gas[:, self.film_idx] for m in self.mechs]
+        self.nu_equiv = [m.nu_equiv for m in self.mechs]
+        self.key_idx = []
+        for m in self.mechs:
+            keys = np.array([(-1 if r.diffusion_key is None else r.diffusion_key)
+                             for r in m.reactions])
+            self.key_idx.append(keys)
+
+    def _transfer_numbers(self, inlet: Stream):
+        """Cell-mean Sherwood and Nusselt numbers from the inlet state (Graetz coordinate)."""
+        b = self.brick
+        sub = b.substrate
+        T = inlet.T
+        rho = float(self.gas.density(T, self.p))
+        u = inlet.mass_flow / (rho * self.A * sub.ofa)          # channel velocity [m/s]
+        self.u_channel = u
+        D = self.gas.diffusivity(T, self.p)[self.film]          # [nf]
+        alpha = float(self.gas.conductivity(T) / (rho * self.gas.cp_mass(T)))
+        method = b.sherwood
+        if sub.shape != "square" and method == "tronconi_forzatti_1992":
+            method = "hawthorn_1974"
+            self.notes.append("Tronconi-Forzatti holds for square channels; Hawthorn (1974) used "
+                              "for this slit geometry")
+        z = self.z_edges[:, None]
+        zs_m = z * D[None, :] / (u * self.d_h ** 2)
+        zs_h = self.z_edges * alpha / (u * self.d_h ** 2)
+        self.Sh = transport.sherwood_cell_mean(method, zs_m, shape=sub.shape)     # [n, nf]
+        self.Nu = transport.sherwood_cell_mean(method, zs_h, shape=sub.shape)     # [n]
+
+    # -- state packing -------------------------------------------------------------------------
+    def initial_state(self) -> np.ndarray:
+        x = np.zeros((self.n, self.nv))
+        inl = self.inlet
+        x[:, :NSP] = inl.F
+        x[:, self.iTg] = inl.T
+        x[:, self.iTs] = inl.T
+        c = inl.x * self.p / (R_GAS * inl.T)
+        x[:, self.ic0:self.ith0] = np.tile(c[self.film_idx], self.nnode)
+        x[:, self.ith0:] = 0.0
+        return x
+
+    def scales(self, x) -> np.ndarray:
+        """Typical magnitude of each unknown, for finite-difference steps."""
+        s = np.empty(self.nv)
+        s[:NSP] = self.F_in_tot * 1e-6
+        s[self.iTg] = s[self.iTs] = 1.0
+        s[self.ic0:self.ith0] = self.p / (R_GAS * self.inlet.T) * 1e-6
+        s[self.ith0:] = 1e-4
+        return np.maximum(np.abs(x), s[None, :])
+
+    def clip(self, x):
+        x[:, :NSP] = np.maximum(x[:, :NSP], 0.0)
+        x[:, self.ic0:self.ith0] = np.maximum(x[:, self.ic0:self.ith0], 0.0)
+        x[:, self.ith0:] = np.clip(x[:, self.ith0:], 0.0, 1.0)
+        x[:, self.iTg] = np.clip(x[:, self.iTg], 200.0, 2000.0)
+        x[:, self.iTs] = np.clip(x[:, self.iTs], 200.0, 2000.0)
+        return x
+
+    # -- physics ---------------------------------------------------------------------------------
+    def layer_rates(self, x, F_in, Tg_in, rows=None):
+        """Reaction rates per layer [ncell, nnode_layer, nrxn] (with effectiveness factors).
+
+        The bulk gas seen by a cell is the mean over the cell of the plug-flow profile between
+        its inlet and outlet: the logarithmic mean for a species that falls along the cell
+        (exact for a first-order loss at a constant surface state), the arithmetic mean for one
+        that rises. This makes the scheme exact for the analytical kinetic and film limits on any
+        grid, and second-order otherwise.
+        """
+        n = x.shape[0]
+        F = x[:, :NSP]
+        Tg, Ts = x[:, self.iTg], x[:, self.iTs]
+        ctot = self.p / (R_GAS * Tg)
+        c_out = F * (ctot / F.sum(axis=1))[:, None]
+        c_in = F_in * (self.p / (R_GAS * Tg_in) / F_in.sum(axis=1))[:, None]
+        cb = cell_mean(c_in, c_out)
+        cn = x[:, self.ic0:self.ith0].reshape(n, self.nnode, self.nf)
+        th = x[:, self.ith0:].reshape(n, self.nnode, self.ns)
+        out = []
+        for k, m in enumerate(self.mechs):
+            nodes = self.layer_nodes[k]
+            c_full = np.repeat(cb[:, None, :], len(nodes), axis=1)
+            c_full[:, :, self.film_idx] = cn[:, nodes, :]
+            theta = th[:, nodes, : len(m.sites)]
+            r = m.rates(c_full, theta, Ts[:, None], self.brick.activity)
+            if self.brick.washcoat == "effectiveness":
+                r = r * self._eta(k, m, r, c_full, Ts)
+            out.append(r)
+        return out, cb, ctot, cn, th
+
+    def _eta(self, k, m, r, c_full, Ts):
+        """Effectiveness factors [n, 1, nrxn] for rates keyed to a diffusing species."""
+        keys = self.key_idx[k]
+        eta = np.ones(r.shape)
+        if np.all(keys < 0):
+            return eta
+        D_mol = self.gas.diffusivity(Ts, self.p)
+        D_eff = self.brick.catalysts[k].pores.effective_diffusivity(D_mol, Ts)   # [n, nsp]
+        delta = self.depths[k]
+        for key in np.unique(keys[keys >= 0]):
+            sel = keys == key
+            kv = (np.abs(m.nu_equiv[sel, key]) * np.maximum(r[..., sel], 0.0)).sum(-1)
+            kv = kv / np.maximum(c_full[..., key], 1e-30)                   # [n, 1]
+            phi = delta * np.sqrt(kv / D_eff[:, None, key])
+            e = np.where(phi > 1e-6, np.tanh(phi) / np.where(phi > 1e-6, phi, 1.0),
+                         1.0 - phi ** 2 / 3.0)
+            eta[..., sel] = e[..., None]
+        return eta
+
+    def residual(self, x, F_in, Tg_in, rows=None):
+        """Scaled residual [nrow, nv] with the inflow of each row given (not taken from x).
+
+        Rows are cells; ``rows`` maps each row to its cell when several perturbed copies of the
+        brick are evaluated in one call (the finite-difference Jacobian does that).
+        """
+        n, nf = x.shape[0], self.nf
+        if rows is None:
+            rows = slice(None)
+        R = np.empty((n, self.nv))
+        rates, cb, ctot, cn, th = self.layer_rates(x, F_in, Tg_in)
+        F = x[:, :NSP]
+        Tg, Ts = x[:, self.iTg], x[:, self.iTs]
+        Ftot = F.sum(axis=1)
+        vol = self.A * self.dz
+        dF = np.zeros((n, NSP))
+        Q = np.zeros(n)
+        prod = np.zeros((n, self.nnode, nf))          # production per geometric area [mol/m2 s]
+        for k, m in enumerate(self.mechs):
+            nodes = self.layer_nodes[k]
+            w = self.node_frac[nodes][None, :, None]                   # brick volume fraction
+            xi = (vol * w * rates[k]).sum(axis=1)                      # [n, nrxn] mol/s
+            dF += xi @ self.nu_equiv[k]
+            Q -= (xi * m.reaction_enthalpy(Ts)).sum(axis=1)
+            prod[:, nodes, :] = (w / self.a) * (rates[k] @ self.nu_gas_f[k])
+            # coverage balances, per node and site [1/s]
+            if m.sites:
+                net = rates[k] @ m.nu_site                              # [n, nodes, nsite]
+                R_th = np.zeros((n, len(nodes), self.ns))
+                R_th[..., : len(m.sites)] = net / self.cap[nodes, : len(m.sites)]
+                if len(m.sites) < self.ns:
+                    R_th[..., len(m.sites):] = th[:, nodes, len(m.sites):]
+                R[:, self.ith0:].reshape(n, self.nnode, self.ns)[:, nodes, :] = R_th
+            elif self.ns:
+                R[:, self.ith0:].reshape(n, self.nnode, self.ns)[:, nodes, :] = th[:, nodes, :]
+        R[:, :NSP] = (F - F_in - dF) / self.F_in_tot
+        # transfer coefficients at the gas temperature
+        cond = self.gas.conductivity(Tg)
+        h = self.Nu[rows] * cond / self.d_h                                  # [n] W/(m2 K)
+        hA = h * self.A_ht
+        cp = self.gas.cp_molar(Tg)
+        Tg_mean = Ts + signed_log_mean(Tg_in - Ts, Tg - Ts)        # log-mean temperature difference
+        R[:, self.iTg] = (Ftot * cp * (Tg - Tg_in) - hA * (Ts - Tg_mean)) / (self.F_in_tot * self.cp_ref)
+        loss = self.loss_UA * (Ts - self.brick.T_ambient)
+        R[:, self.iTs] = (hA * (Tg_mean - Ts) + Q - loss) / hA
+        # film and washcoat diffusion
+        cbf = cb[:, self.film_idx]
+        if self.brick.film:
+            D = self.gas.diffusivity(Tg, self.p)[:, self.film_idx]
+            km = self.Sh[rows] * D / self.d_h                                # [n, nf] m/s
+        else:
+            km = np.full((n, nf), 1e12)
+        scale = km * ctot[:, None]
+        Rc = R[:, self.ic0:self.ith0].reshape(n, self.nnode, nf)
+        if not self.resolved:
+            Rc[:] = (km[:, None, :] * (cbf[:, None, :] - cn) + prod) / scale[:, None, :]
+        else:
+            D_mol = self.gas.diffusivity(Ts, self.p)
+            Deff = np.empty((n, self.nnode, nf))
+            for k in range(len(self.mechs)):
+                nodes = self.layer_nodes[k]
+                De = self.brick.catalysts[k].pores.effective_diffusivity(D_mol, Ts)
+                Deff[:, nodes, :] = De[:, None, self.film_idx]
+            half = self.node_dx[None, :, None] / (2.0 * Deff)          # [n, nnode, nf] s/m
+            J = np.zeros((n, self.nnode + 1, nf))                      # flux into node j from above
+            J[:, 0, :] = (cbf - cn[:, 0, :]) / (1.0 / km + half[:, 0, :])
+            J[:, 1:-1, :] = (cn[:, :-1, :] - cn[:, 1:, :]) / (half[:, :-1, :] + half[:, 1:, :])
+            Rc[:] = (J[:, :-1, :] - J[:, 1:, :] + prod) / scale[:, None, :]
+        return R
+
+    def inflow(self, x):
+        F_in = np.empty((self.n, NSP))
+        F_in[0] = self.inlet.F
+        F_in[1:] = x[:-1, :NSP]
+        Tg_in = np.empty(self.n)
+        Tg_in[0] = self.inlet.T
+        Tg_in[1:] = x[:-1, self.iTg]
+        return F_in, Tg_in
+
+
+def _newton_step(model: _BrickModel, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
+    """Solve J dx = -R (plus an optional pseudo-time diagonal) for the block-bidiagonal J."""
+    n, nv = model.n, model.nv
+    ng = NSP + 1
+    # all finite-difference perturbations in one vectorised residual call: nv copies of the brick
+    # with one unknown perturbed in every cell, then ng copies with one inflow quantity perturbed
+    h = fd_step * model.scales(x)                          # [n, nv]
+    hF = fd_step * np.maximum(np.abs(F_in), model.F_in_tot * 1e-6)
+    hT = fd_step * np.maximum(np.abs(Tg_in), 1.0)
+    m = nv + ng
+    X = np.broadcast_to(x, (m, n, nv)).copy()
+    idx = np.arange(nv)
+    X[idx, :, idx] += h.T
+    Fin = np.broadcast_to(F_in, (m, n, NSP)).copy()
+    Fin[nv + np.arange(NSP), :, np.arange(NSP)] += hF.T
+    Tin = np.broadcast_to(Tg_in, (m, n)).copy()
+    Tin[nv + NSP] += hT
+    rows = np.tile(np.arange(n), m)
+    Rall = model.residual(X.reshape(m * n, nv), Fin.reshape(m * n, NSP), Tin.reshape(m * n),
+                          rows).reshape(m, n, nv)
+    B = ((Rall[:nv] - R[None]) / h.T[:, :, None]).transpose(1, 2, 0)      # [n, row, col]
+    C = np.empty((n, nv, ng))
+    C[:, :, :NSP] = ((Rall[nv:nv + NSP] - R[None]) / hF.T[:, :, None]).transpose(1, 2, 0)
+    C[:, :, NSP] = (Rall[nv + NSP] - R) / hT[:, None]
+    if ptc_diag is not None:
+        # implicit Euler on dx/dt = R (coverage and solid-temperature rows are written so that
+        # the residual is the rate of change): (J - I/tau) dx = -R
+        B[:, idx, idx] -= ptc_diag
+    Binv = np.linalg.inv(B)
+    a = -np.einsum("nij,nj->ni", Binv, R)
+    G = Binv @ C                                           # [n, nv, ng]
+    gas = np.r_[np.arange(NSP), model.iTg]
+    dx = np.empty((n, nv))
+    dx[0] = a[0]
+    for j in range(1, n):
+        dx[j] = a[j] - G[j] @ dx[j - 1, gas]
+    return dx
+
+
+def _norm(model: _BrickModel, R) -> float:
+    return float(np.max(np.abs(R))) if R.size else 0.0
+
+
+def _iterate(model: _BrickModel, x0, st: SolverSettings):
+    """Newton with backtracking; on stagnation, pseudo-transient continuation from the start.
+
+    Pseudo-transient continuation (Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508) advances
+    coverage and solid temperature by implicit Euler steps whose size grows as the residual falls
+    (switched evolution relaxation), then hands over to Newton.
+    """
+    diag_mask = np.zeros(model.nv)
+    diag_mask[model.ith0:] = 1.0
+    diag_mask[model.iTs] = 1.0
+    x = x0.copy()
+    its = 0
+    tau = None                                 # None: plain Newton
+    ptc_steps = 0
+    ref = np.inf                               # non-monotone reference for the line search
+    while its < st.max_newton + st.max_ptc_steps:
+        F_in, Tg_in = model.inflow(x)
+        R = model.residual(x, F_in, Tg_in)
+        res = _norm(model, R)
+        if res < st.tol:
+            break
+        ref = min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res
+        diag = None if tau is None else diag_mask / tau
+        dx = _newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
+        its += 1
+        alpha, accepted = 1.0, False
+        for _ in range(10):
+            x_new = model.clip(x + alpha * dx)
+            R_new = model.residual(x_new, *model.inflow(x_new))
+            res_new = _norm(model, R_new)
+            if np.isfinite(res_new) and (res_new < ref or tau is not None):
+                accepted = True
+                break
+            alpha *= 0.5
+        if tau is None:
+            if accepted and its <= st.max_newton:
+                x = x_new
+                continue
+            # Newton stalled: restart from the crude state with pseudo-time stepping
+            x, tau = model.initial_state(), st.tau0
+            continue
+        ptc_steps += 1
+        if not np.isfinite(res_new):
+            tau *= 0.1
+            continue
+        x = x_new
+        tau *= min(max(res / max(res_new, 1e-300), 2.0), 100.0)
+        if tau > 1e6:
+            tau = None                         # close enough: finish with Newton
+            st = SolverSettings(**{**st.__dict__, "max_newton": its + st.max_newton})
+    return x, its
+
+
+def solve_brick(brick: Brick, inlet: Stream, *, guess: np.ndarray | None = None,
+                settings: SolverSettings | None = None, check_validity: bool = True
+                ) -> BrickSolution:
+    """Steady state of ``brick`` fed by ``inlet``.
+
+    Never raises on non-convergence: the solution carries ``converged`` and ``residual``.
+    ``guess`` (a previous solution's ``state`` on the same grid) warm-starts the solver.
+    """
+    t0 = time.perf_counter()
+    st = settings or SolverSettings()
+    if check_validity:
+        for cat in brick.catalysts:
+            cat.check_temperature(inlet.T, f"inlet temperature of brick '{brick.name}'")
+    model = _BrickModel(brick, inlet)
+    x = model.initial_state() if guess is None or guess.shape != (model.n, model.nv) \
+        else guess.copy()
+    x, its = _iterate(model, x, st)
+    F_in, Tg_in = model.inflow(x)
+    R = model.residual(x, F_in, Tg_in)
+    res = _norm(model, R)
+    converged = res < st.tol
+    return _package(model, x, inlet, converged, res, its, time.perf_counter() - t0)
+
+
+def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds) -> BrickSolution:
+    b = model.brick
+    n = model.n
+    F = x[:, :NSP].copy()
+    Tg, Ts = x[:, model.iTg].copy(), x[:, model.iTs].copy()
+    rates, *_ = model.layer_rates(x, *model.inflow(x))
+    vol = model.A * model.dz
+    extents = [(vol * model.node_frac[model.layer_nodes[k]][None, :, None] * rates[k]).sum(axis=1)
+               for k in range(len(model.mechs))]
+    # pressure drop along the brick with the solved temperatures
+    rho = model.gas.density(Tg, model.p)
+    mu = model.gas.viscosity(Tg)
+    dp = transport.pressure_drop(model.d_h, b.substrate.ofa, b.substrate.shape, b.length,
+                                 inlet.mass_flow, model.A, rho, mu,
+                                 apparent=b.apparent_friction)
+    outlet = Stream(F=np.maximum(F[-1], 0.0), T=float(Tg[-1]), p=inlet.p - dp.total_Pa)
+    atoms_in = ELEMENT_MATRIX @ inlet.F
+    err = float(np.max(np.abs(ELEMENT_MATRIX @ outlet.F - atoms_in)) / np.max(atoms_in))
+    return BrickSolution(
+        brick=b, inlet=inlet, outlet=outlet, z=(model.z_edges[:-1] + model.z_edges[1:]) / 2,
+        F=F, T_gas=Tg, T_solid=Ts,
+        coverage=x[:, model.ith0:].reshape(n, model.nnode, model.ns).copy(),
+        c_surface=x[:, model.ic0:model.ith0].reshape(n, model.nnode, model.nf).copy(),
+        film_species=[SPECIES[i] for i in model.film], node_layer=model.node_layer,
+        extents=extents, dp=dp, converged=bool(converged), residual=float(res), iterations=its,
+        element_balance_error=err, seconds=seconds, notes=list(model.notes), state=x.copy())
+
+
+def require_converged(sol: BrickSolution) -> BrickSolution:
+    """Raise :class:`ConvergenceError` unless ``sol`` converged."""
+    if not sol.converged:
+        raise ConvergenceError(f"brick '{sol.brick.name}' did not converge "
+                               f"(scaled residual {sol.residual:.2e})", sol.residual)
+    return sol

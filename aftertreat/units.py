@@ -1,0 +1,71 @@
+"""Reading quantities that carry units, once, at load time.
+
+Users may write ``"450 mm"``, ``"380 degC"`` or ``"8.2 t/h"``, or a bare number under a key whose
+suffix names the unit (``length_mm = 450``). Everything is converted to SI here, by pint; the
+library works in SI (and mol) from then on.
+"""
+from __future__ import annotations
+
+from functools import lru_cache
+
+from .errors import InputError
+
+__all__ = ["ureg", "to_si", "from_si", "MIL", "T_NORMAL_K", "P_NORMAL_PA", "R_GAS"]
+
+#: Molar gas constant [J/(mol K)] (CODATA 2018, exact by SI definition).
+R_GAS = 8.314462618
+#: Default normal conditions for GHSV and normal volumes: 0 degC and 101.325 kPa (common practice;
+#: limit sets may choose others).
+T_NORMAL_K = 273.15
+P_NORMAL_PA = 101325.0
+#: One "mil" (thousandth of an inch), the trade unit of honeycomb wall thickness [m].
+MIL = 25.4e-6
+
+
+@lru_cache(maxsize=1)
+def _registry():
+    import pint
+    reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    reg.define("cpsi = 1 / inch**2")
+    reg.define("ppm = 1e-6 = ppmv")
+    return reg
+
+
+def ureg():
+    """The shared pint registry (built on first use; importing this module stays cheap)."""
+    return _registry()
+
+
+def to_si(value, unit: str, *, key: str | None = None, file: str | None = None) -> float:
+    """Convert ``value`` to the SI unit ``unit`` (e.g. ``"m"``, ``"K"``, ``"kg/s"``).
+
+    A bare number is taken to be in ``unit`` already. A string is parsed with its own unit, which
+    must be dimensionally compatible with ``unit``. Errors are :class:`InputError` naming the key.
+    """
+    reg = _registry()
+    if isinstance(value, bool):
+        raise InputError(f"expected a number or a quantity in units of {unit}", key=key,
+                         value=value, file=file)
+    if isinstance(value, (int, float)):
+        return float(value)
+    if isinstance(value, str):
+        try:
+            q = reg.Quantity(value)
+        except Exception:
+            raise InputError(f"expected a quantity such as '450 mm' (units of {unit})",
+                             key=key, value=value, file=file) from None
+        try:
+            if not hasattr(q, "to"):
+                return float(q)
+            return float(q.to(unit).magnitude)
+        except Exception:
+            raise InputError(f"expected units compatible with {unit}", key=key, value=value,
+                             file=file) from None
+    raise InputError(f"expected a number or a quantity in units of {unit}", key=key,
+                     value=value, file=file)
+
+
+def from_si(value: float, unit: str, si_unit: str) -> float:
+    """Convert an SI value to a display unit (e.g. ``from_si(T, "degC", "K")``)."""
+    reg = _registry()
+    return float(reg.Quantity(value, si_unit).to(unit).magnitude)
