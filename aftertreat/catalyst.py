@@ -24,8 +24,8 @@ from .kinetics import Mechanism, build_reaction
 from .species import MOLAR_MASS
 from .units import R_GAS, to_si
 
-__all__ = ["Catalyst", "PoreStructure", "load_catalyst", "available_catalysts",
-           "PROVENANCE_KINDS"]
+__all__ = ["Catalyst", "LayeredCatalyst", "PoreStructure", "load_catalyst", "load_layers",
+           "available_catalysts", "PROVENANCE_KINDS"]
 
 #: How a parameter was obtained; every provenance string starts with one of these.
 PROVENANCE_KINDS = ("transcribed", "from memory", "fitted")
@@ -178,6 +178,58 @@ def parse_catalyst(data: dict, *, key: str, file: str) -> Catalyst:
                     notes=str(data.get("notes", "")))
 
 
+@dataclass
+class LayeredCatalyst:
+    """A coated product made of several catalyst layers (gas side first), e.g. a dual-layer ASC.
+
+    Each layer is a plain catalyst file plus a default thickness [m]; a case may override the
+    thicknesses.
+    """
+    key: str
+    name: str
+    description: str
+    role: str
+    sources: list[dict]
+    layers: list[tuple[Catalyst, float]]
+    file: str
+
+    def citations(self) -> list[str]:
+        return Catalyst.citations(self)  # same fields
+
+
+_LAYERED_KEYS = {"name", "description", "role", "source", "layer"}
+
+
+def parse_layered(data: dict, *, key: str, file: str) -> LayeredCatalyst:
+    """Validate a layered-catalyst table (``[[layer]]`` entries naming plain catalyst files)."""
+    for k in data:
+        if k not in _LAYERED_KEYS:
+            raise InputError("unknown key; valid: " + ", ".join(sorted(_LAYERED_KEYS))
+                             + did_you_mean(k, _LAYERED_KEYS), key=k, file=file)
+    layers = []
+    for i, spec in enumerate(data["layer"]):
+        ck = spec.get("catalyst")
+        if not isinstance(ck, str):
+            raise InputError("expected the key of a catalyst file", key=f"layer[{i}].catalyst",
+                             value=ck, file=file)
+        cat = load_catalyst(ck, base=Path(file).parent)
+        if isinstance(cat, LayeredCatalyst):
+            raise InputError("a layer must be a plain catalyst, not a layered one",
+                             key=f"layer[{i}].catalyst", value=ck, file=file)
+        th = to_si(spec.get("thickness_um", -1.0), "um", key=f"layer[{i}].thickness_um", file=file)
+        if not th > 0:
+            raise InputError("expected a layer thickness > 0 um", key=f"layer[{i}].thickness_um",
+                             value=spec.get("thickness_um"), file=file)
+        layers.append((cat, th * 1e-6))
+    if len(layers) < 2:
+        raise InputError("a layered catalyst needs at least two [[layer]] entries", key="layer",
+                         file=file)
+    return LayeredCatalyst(key=key, name=str(data.get("name", key)),
+                           description=str(data.get("description", "")),
+                           role=str(data.get("role", "ASC")), sources=list(data.get("source", [])),
+                           layers=layers, file=file)
+
+
 def _library_dir() -> Path:
     return Path(str(resources.files("aftertreat.catalysts")))
 
@@ -188,25 +240,44 @@ def available_catalysts() -> list[str]:
 
 
 @lru_cache(maxsize=64)
-def _load_path(path: str, key: str) -> Catalyst:
+def _load_path(path: str, key: str) -> "Catalyst | LayeredCatalyst":
     try:
         with open(path, "rb") as fh:
             data = tomllib.load(fh)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML ({exc})", file=path) from None
+    if "layer" in data:
+        return parse_layered(data, key=key, file=path)
     return parse_catalyst(data, key=key, file=path)
 
 
-def load_catalyst(name: str | Path) -> Catalyst:
-    """Load a shipped catalyst by key (e.g. ``"vanadia_extruded"``) or a file by path."""
+def load_catalyst(name: str | Path, base: Path | None = None) -> "Catalyst | LayeredCatalyst":
+    """Load a catalyst by key (e.g. ``"vanadia_extruded"``) or a file by path.
+
+    A key is looked up beside ``base`` (the folder of the file that names it) first, then in the
+    shipped library. A file with ``[[layer]]`` entries gives a :class:`LayeredCatalyst`.
+    """
     p = Path(name)
     if p.suffix == ".toml" or p.exists():
+        if not p.is_absolute() and base is not None and (base / p).exists():
+            p = base / p
         if not p.exists():
             raise InputError("catalyst file not found", value=str(name), file=str(p))
         return _load_path(str(p.resolve()), p.stem)
+    if base is not None and (Path(base) / f"{name}.toml").exists():
+        return _load_path(str((Path(base) / f"{name}.toml").resolve()), str(name))
     lib = _library_dir() / f"{name}.toml"
     if not lib.exists():
         keys = available_catalysts()
         raise InputError(f"unknown catalyst; shipped: {', '.join(keys)}" + did_you_mean(name, keys),
                          key="catalyst", value=str(name))
     return _load_path(str(lib), str(name))
+
+
+def load_layers(name: "str | Path | Catalyst | LayeredCatalyst") -> list[tuple[Catalyst, float | None]]:
+    """The layers of a catalyst, gas side first, with default thicknesses [m] (None for a plain
+    catalyst, whose thickness comes from the substrate)."""
+    cat = load_catalyst(name) if isinstance(name, (str, Path)) else name
+    if isinstance(cat, LayeredCatalyst):
+        return list(cat.layers)
+    return [(cat, None)]

@@ -143,13 +143,14 @@ class MassAction(_Form):
 
 @dataclass
 class TemkinDesorption(_Form):
+    """r = A exp(-E0 (1 - alpha theta)/(R T)) theta, with A = k_ref exp(E0/(R T_ref)):
+    k_ref is the desorption rate constant at T_ref on a bare surface (theta -> 0)."""
     alpha: float = 0.0
     site: int = 0
 
     def __call__(self, c, theta, T):
         th = np.clip(theta[..., self.site], 0.0, 1.0)
-        # k_ref is the rate constant at T_ref and zero coverage.
-        return arrhenius(self.k_ref, self.E * (1.0 - self.alpha * th), self.T_ref, T) * th
+        return self.k(T) * np.exp(self.alpha * self.E * th / (R_GAS * T)) * th
 
 
 @dataclass
@@ -383,12 +384,13 @@ class Mechanism:
     def __post_init__(self):
         self.nu_gas = np.array([r.nu_gas for r in self.reactions]).reshape(-1, len(SPECIES))
         self.nu_equiv = np.array([r.nu_equiv for r in self.reactions]).reshape(-1, len(SPECIES))
-        self.nu_site = np.array([r.nu_site for r in self.reactions]).reshape(-1, len(self.sites))
+        self.nu_site = np.array([r.nu_site for r in self.reactions]).reshape(
+            len(self.reactions), len(self.sites))
         self.ages = np.array([r.ages for r in self.reactions], dtype=bool)
         deps = set()
         for r in self.reactions:
             law = r.law
-            deps |= set(law.orders)
+            deps |= {i for i, n in law.orders.items() if n != 0}
             if getattr(law, "nu", None) is not None:
                 deps |= set(np.nonzero(law.nu)[0])
             deps |= set(getattr(law, "inhibition", {}) or {})
@@ -408,7 +410,8 @@ class Mechanism:
         keep their rates (``ages = false`` in the file).
         """
         T = np.asarray(T, dtype=float)
-        out = np.empty(T.shape + (len(self.reactions),))
+        shape = np.broadcast_shapes(T.shape, np.shape(c)[:-1])
+        out = np.empty(shape + (len(self.reactions),))
         for j, r in enumerate(self.reactions):
             out[..., j] = r.law(c, theta, T)
         if activity != 1.0:

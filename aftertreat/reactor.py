@@ -209,7 +209,26 @@ class _BrickModel:
         c = inl.x * self.p / (R_GAS * inl.T)
         x[:, self.ic0:self.ith0] = np.tile(c[self.film_idx], self.nnode)
         x[:, self.ith0:] = 0.0
+        if self.ns:
+            self._balance_coverage(x)
         return x
+
+    def _balance_coverage(self, x, steps: int = 20):
+        """Start coverages where the coverage balances vanish at the starting gas state.
+
+        Each balance falls monotonically from adsorption (theta = 0) to desorption and reaction
+        (theta = 1), so a vectorised bisection per node and site finds it robustly.
+        """
+        F_in, Tg_in = self.inflow(x)
+        lo = np.zeros((self.n, self.nv - self.ith0))
+        hi = np.ones_like(lo)
+        for _ in range(steps):
+            mid = 0.5 * (lo + hi)
+            x[:, self.ith0:] = mid
+            r = self.residual(x, F_in, Tg_in)[:, self.ith0:]
+            lo = np.where(r > 0, mid, lo)
+            hi = np.where(r > 0, hi, mid)
+        x[:, self.ith0:] = 0.5 * (lo + hi)
 
     def scales(self, x) -> np.ndarray:
         """Typical magnitude of each unknown, for finite-difference steps."""
@@ -221,8 +240,8 @@ class _BrickModel:
         return np.maximum(np.abs(x), s[None, :])
 
     def clip(self, x):
-        x[:, :NSP] = np.maximum(x[:, :NSP], 0.0)
-        x[:, self.ic0:self.ith0] = np.maximum(x[:, self.ic0:self.ith0], 0.0)
+        """Keep coverages in [0, 1] and temperatures sane. Flows and concentrations are not
+        clipped: rates see max(c, 0), and clipping them would stall Newton next to c = 0."""
         x[:, self.ith0:] = np.clip(x[:, self.ith0:], 0.0, 1.0)
         x[:, self.iTg] = np.clip(x[:, self.iTg], 200.0, 2000.0)
         x[:, self.iTs] = np.clip(x[:, self.iTs], 200.0, 2000.0)
@@ -365,6 +384,9 @@ def _newton_step(model: _BrickModel, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
     # all finite-difference perturbations in one vectorised residual call: nv copies of the brick
     # with one unknown perturbed in every cell, then ng copies with one inflow quantity perturbed
     h = fd_step * model.scales(x)                          # [n, nv]
+    # step coverages inward from their upper bound (clipped rates are flat beyond theta = 1)
+    th = x[:, model.ith0:]
+    h[:, model.ith0:] = np.where(th > 0.5, -h[:, model.ith0:], h[:, model.ith0:])
     hF = fd_step * np.maximum(np.abs(F_in), model.F_in_tot * 1e-6)
     hT = fd_step * np.maximum(np.abs(Tg_in), 1.0)
     m = nv + ng
@@ -424,7 +446,10 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
             break
         ref = min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res
         diag = None if tau is None else diag_mask / tau
-        dx = _newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
+        try:
+            dx = _newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
+        except np.linalg.LinAlgError:
+            dx = np.full_like(x, np.nan)
         its += 1
         alpha, accepted = 1.0, False
         for _ in range(10):
@@ -436,7 +461,8 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
                 break
             alpha *= 0.5
         if tau is None:
-            if accepted and its <= st.max_newton:
+            stalled = alpha < 1.0 / 64.0 and res_new > 0.5 * res
+            if accepted and not stalled and its <= st.max_newton:
                 x = x_new
                 continue
             # Newton stalled: restart from the crude state with pseudo-time stepping

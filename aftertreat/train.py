@@ -1,0 +1,189 @@
+"""A train of bricks in series, solved at one operating point, and its results.
+
+The outlet stream of each brick (flows, temperature, pressure after its pressure drop) feeds the
+next one. Results keep every brick's solution and convert to pandas tables with units in the
+column names.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .brick import Brick
+from .errors import InputError
+from .reactor import BrickSolution, SolverSettings, solve_brick
+from .species import ELEMENT_MATRIX, INDEX, NOX, SPECIES
+from .stream import Stream
+from .units import P_NORMAL_PA, R_GAS, T_NORMAL_K
+
+__all__ = ["Train", "TrainSolution"]
+
+
+@dataclass
+class Train:
+    """Bricks in flow order (e.g. SCR, SCR, ASC)."""
+    bricks: list[Brick]
+
+    def __post_init__(self):
+        self.bricks = list(self.bricks)
+        if not self.bricks:
+            raise InputError("a train needs at least one brick", key="bricks")
+        names = [b.name for b in self.bricks]
+        dup = {n for n in names if names.count(n) > 1}
+        if dup:
+            raise InputError("brick names must be unique", key="bricks", value=sorted(dup))
+
+    @property
+    def volume(self) -> float:
+        """Total brick volume [m^3]."""
+        return sum(b.volume for b in self.bricks)
+
+    def solve(self, inlet: Stream, *, settings: SolverSettings | None = None,
+              guess: "TrainSolution | None" = None) -> "TrainSolution":
+        """Steady state of the train fed by ``inlet`` (the stream at the first brick's face).
+
+        ``guess`` is a previous solution of the same train layout (same cell counts) used to
+        warm-start each brick; sizing loops and what-ifs pass it in.
+        """
+        t0 = time.perf_counter()
+        sols: list[BrickSolution] = []
+        stream = inlet
+        for i, b in enumerate(self.bricks):
+            g = None
+            if guess is not None and i < len(guess.bricks):
+                g = guess.bricks[i].state
+            sol = solve_brick(b, stream, guess=g, settings=settings)
+            sols.append(sol)
+            stream = sol.outlet
+        return TrainSolution(train=self, inlet=inlet, bricks=sols,
+                             seconds=time.perf_counter() - t0)
+
+
+@dataclass
+class TrainSolution:
+    """Steady state of a train: one :class:`~aftertreat.reactor.BrickSolution` per brick."""
+    train: Train
+    inlet: Stream
+    bricks: list[BrickSolution]
+    seconds: float = 0.0
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def outlet(self) -> Stream:
+        return self.bricks[-1].outlet
+
+    @property
+    def converged(self) -> bool:
+        return all(b.converged for b in self.bricks)
+
+    @property
+    def residual(self) -> float:
+        """Largest scaled residual over the bricks."""
+        return max(b.residual for b in self.bricks)
+
+    @property
+    def element_balance_error(self) -> float:
+        """max |N, H, O atoms out - in| / max(atoms in) over the whole train [-]."""
+        a_in = ELEMENT_MATRIX @ self.inlet.F
+        a_out = ELEMENT_MATRIX @ self.outlet.F
+        return float(np.max(np.abs(a_out - a_in)) / np.max(a_in))
+
+    @property
+    def dp_Pa(self) -> float:
+        """Total pressure drop over the train [Pa]."""
+        return sum(b.dp.total_Pa for b in self.bricks)
+
+    def nox_conversion(self) -> float:
+        """1 - (NO + NO2 out)/(NO + NO2 in), on molar flows [-]."""
+        idx = [INDEX[s] for s in NOX]
+        nin = self.inlet.F[idx].sum()
+        return float(1.0 - self.outlet.F[idx].sum() / nin) if nin > 0 else float("nan")
+
+    def ghsv_per_h(self, T_normal: float = T_NORMAL_K, p_normal: float = P_NORMAL_PA) -> float:
+        """Gas hourly space velocity over the whole train [1/h], normal conditions given [K, Pa]."""
+        q_n = self.inlet.total * R_GAS * T_normal / p_normal
+        return q_n / self.train.volume * 3600.0
+
+    # ---- tables --------------------------------------------------------------------------------
+    def brick_table(self):
+        """One row per brick: volume, outlet temperature, pressure drop, outlet ppm, status."""
+        import pandas as pd
+        rows = []
+        for s in self.bricks:
+            b = s.brick
+            row = {"name": b.name, "role": b.role,
+                   "catalysts": "+".join(c.key for c in b.catalysts),
+                   "volume_L": b.volume * 1e3, "length_mm": b.length * 1e3,
+                   "diameter_mm": b.diameter * 1e3,
+                   "GHSV_per_h": s.inlet.total * R_GAS * T_NORMAL_K / P_NORMAL_PA / b.volume * 3600,
+                   "T_in_C": s.inlet.T - 273.15, "T_out_C": s.outlet.T - 273.15,
+                   "dp_kPa": s.dp.total_Pa / 1e3}
+            for sp in ("NO", "NO2", "NH3", "N2O"):
+                row[f"{sp}_out_ppm"] = s.outlet.ppm(sp)
+            row.update({"converged": s.converged, "residual": s.residual,
+                        "iterations": s.iterations, "element_balance_error":
+                        s.element_balance_error})
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+    def profiles(self):
+        """Axial profiles along the train: one row per cell, z measured from the train inlet.
+
+        Columns: ``brick``, ``z_mm``, wet ppm of each species (``NO_ppm`` ...), ``T_gas_C``,
+        ``T_solid_C``, and the NH3 coverage of the gas-side node of each site (``theta_<layer>_<site>``).
+        """
+        import pandas as pd
+        frames = []
+        z0 = 0.0
+        for s in self.bricks:
+            d = {"brick": s.brick.name, "z_mm": (z0 + s.z) * 1e3}
+            tot = s.F.sum(axis=1)
+            for sp in SPECIES:
+                d[f"{sp}_ppm"] = s.F[:, INDEX[sp]] / tot * 1e6
+            d["T_gas_C"] = s.T_gas - 273.15
+            d["T_solid_C"] = s.T_solid - 273.15
+            for k, cat in enumerate(s.brick.catalysts):
+                first = int(np.nonzero(s.node_layer == k)[0][0])
+                for j, site in enumerate(cat.mechanism.sites):
+                    d[f"theta_{cat.key}_{site}"] = s.coverage[:, first, j]
+            frames.append(pd.DataFrame(d))
+            z0 += s.brick.length
+        return pd.concat(frames, ignore_index=True)
+
+    def to_pandas(self):
+        """The axial profiles (:meth:`profiles`); :meth:`brick_table` gives the per-brick summary."""
+        return self.profiles()
+
+    def provenance(self):
+        """Every kinetic parameter behind this result with its provenance, as a table."""
+        import pandas as pd
+        rows, seen = [], set()
+        for s in self.bricks:
+            for c in s.brick.catalysts:
+                if c.key not in seen:
+                    seen.add(c.key)
+                    rows += c.provenance_table()
+        return pd.DataFrame(rows)
+
+    def sources(self) -> list[str]:
+        """Citations of the catalysts and correlations used."""
+        out, seen = [], set()
+        for s in self.bricks:
+            for c in s.brick.catalysts:
+                for line in c.citations():
+                    if line not in seen:
+                        seen.add(line)
+                        out.append(line)
+        from .citations import MODEL_SOURCES
+        for b in {s.brick.sherwood for s in self.bricks}:
+            out.append(MODEL_SOURCES[b])
+        keys = ["shah_london_1978", "kays_london_1984", "rennels_2012", "cantera"]
+        if any(s.brick.washcoat == "effectiveness" for s in self.bricks):
+            keys.append("thiele_1939")
+        if any(s.brick.apparent_friction for s in self.bricks):
+            keys.append("shah_1978")
+        for key in keys:
+            out.append(MODEL_SOURCES[key])
+        return out
