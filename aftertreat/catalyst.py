@@ -98,7 +98,8 @@ class Catalyst:
         out = []
         for s in self.sources:
             doi = f", doi:{s['doi']}" if s.get("doi") else ""
-            out.append(f"{s.get('authors', '?')} ({s.get('year', '?')}). {s.get('title', '')}. "
+            title = f" {s['title']}." if s.get("title") else ""
+            out.append(f"{s.get('authors', '?')} ({s.get('year', '?')}).{title} "
                        f"{s.get('journal', '')}{doi}")
         return out
 

@@ -49,8 +49,11 @@ def to_si(value, unit: str, *, key: str | None = None, file: str | None = None) 
     if isinstance(value, (int, float)):
         return float(value)
     if isinstance(value, str):
+        import re
+        # the trade's "mil" (wall thickness) is pint's "thou"; pint's own "mil" is not a length
+        text = re.sub(r"\bmils?\b", "thou", value)
         try:
-            q = reg.Quantity(value)
+            q = reg.Quantity(text)
         except Exception:
             raise InputError(f"expected a quantity such as '450 mm' (units of {unit})",
                              key=key, value=value, file=file) from None

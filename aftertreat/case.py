@@ -1,0 +1,316 @@
+"""Case files: the catalyst train and the exhaust entering it, read from TOML and validated.
+
+Every value is checked before any computation; a mistake gives one :class:`InputError` naming the
+file, the key (dotted path, list items by index), the value and what was expected. Quantities may be
+strings with units (``"600 mm"``, ``"350 degC"``, ``"2.4 kg/s"``) or bare numbers under a key whose
+suffix names the unit (``length_mm = 600``).
+
+Layout (our own key names)::
+
+    title = "..."
+    [exhaust]                 # the stream at the face of the first brick
+    mass_flow = "2.4 kg/s"    # or molar_flow = "83 mol/s"
+    T = "360 degC"
+    p = "103 kPa"
+    basis = "wet"             # basis of the ppm and % values below ("wet" or "dry")
+    O2_pct = 11.0
+    H2O_pct = 22.0            # always the wet water fraction
+    NO_ppm = 900.0            # also NO2_ppm, NH3_ppm, N2O_ppm, H2_pct, CO2_pct, Ar_pct
+    [[brick]]
+    name = "SCR 1"
+    catalyst = "vanadia_extruded"   # key of a shipped file, or a path relative to the case
+    substrate = "extruded"          # "coated", "extruded" or "plate"
+    cpsi = 35
+    wall = "0.7 mm"                 # coated: wall_mil = 4 and washcoat_um = [35, 12]
+    length = "600 mm"
+    diameter = "900 mm"
+    activity = 0.85                 # ageing multiplier, 1 = fresh
+"""
+from __future__ import annotations
+
+import copy
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from .brick import WASHCOAT_MODELS, Brick
+from .catalyst import LayeredCatalyst, load_catalyst
+from .errors import InputError, did_you_mean
+from .geometry import Substrate
+from .species import INDEX, SPECIES
+from .stream import Stream
+from .train import Train
+from .units import to_si
+
+__all__ = ["Case", "load_case", "parse_case", "apply_set", "read_toml"]
+
+_TOP = {"title", "note", "exhaust", "brick"}
+_EXHAUST = {"mass_flow", "mass_flow_kg_s", "molar_flow", "molar_flow_mol_s", "T", "T_C", "p",
+            "p_kPa", "basis"} | {f"{s}_ppm" for s in SPECIES} | {f"{s}_pct" for s in SPECIES}
+_BRICK = {"name", "catalyst", "substrate", "cpsi", "wall", "wall_mm", "wall_mil", "washcoat_um",
+          "gap", "gap_mm", "plate", "plate_mm", "length", "length_mm", "diameter", "diameter_mm",
+          "activity", "cells", "nodes_per_layer", "washcoat_model", "sherwood",
+          "heat_loss_W_m2K"}
+
+
+@dataclass
+class Case:
+    """A validated case: its title, the train and the exhaust at the train inlet."""
+    title: str
+    train: Train
+    exhaust: Stream
+    file: str
+    data: dict                     # the case as read (after --set overrides), for reports
+
+
+def read_toml(path: str | Path) -> dict:
+    """Read a TOML file; errors name the file."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError("file not found", file=str(p))
+    try:
+        with open(p, "rb") as fh:
+            return tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", file=str(p)) from None
+
+
+def _unknown(table: dict, allowed: set, file: str, prefix: str) -> None:
+    for k in table:
+        if k not in allowed:
+            raise InputError("unknown key" + did_you_mean(k, allowed) + "; valid keys: "
+                             + ", ".join(sorted(allowed)), key=f"{prefix}{k}", file=file)
+
+
+def _quantity(table: dict, base: str, unit: str, suffix_unit: tuple[str, str] | None, file: str,
+              prefix: str, required: bool = True, default=None):
+    """Read ``base`` (string with units or bare number in ``unit``) or ``base_<suffix>``."""
+    if base in table:
+        return to_si(table[base], unit, key=f"{prefix}{base}", file=file)
+    if suffix_unit and f"{base}_{suffix_unit[0]}" in table:
+        key = f"{base}_{suffix_unit[0]}"
+        v = table[key]
+        if not isinstance(v, (int, float)) or isinstance(v, bool):
+            raise InputError(f"expected a number in {suffix_unit[1]}", key=f"{prefix}{key}",
+                             value=v, file=file)
+        return to_si(f"{v} {suffix_unit[1]}", unit, key=f"{prefix}{key}", file=file)
+    if required:
+        alt = f" (or {base}_{suffix_unit[0]})" if suffix_unit else ""
+        raise InputError(f"missing; expected {base}{alt}", key=f"{prefix}{base}", file=file)
+    return default
+
+
+def _positive(v, key, file, what="a value > 0"):
+    if not (v is not None and v > 0):
+        raise InputError(f"expected {what}", key=key, value=v, file=file)
+    return v
+
+
+def parse_exhaust(ex: dict, file: str) -> Stream:
+    """The exhaust table into a :class:`Stream` (mole fractions wet, N2 takes the balance)."""
+    pre = "exhaust."
+    _unknown(ex, _EXHAUST, file, pre)
+    T = _quantity(ex, "T", "K", ("C", "degC"), file, pre)
+    if not (273.15 <= T <= 1173.15):
+        raise InputError("expected a temperature within 0..900 degC", key=pre + "T",
+                         value=ex.get("T", ex.get("T_C")), file=file)
+    p = _quantity(ex, "p", "Pa", ("kPa", "kPa"), file, pre, required=False, default=101325.0)
+    _positive(p, pre + "p", file, "a pressure > 0")
+    basis = ex.get("basis", "wet")
+    if basis not in ("wet", "dry"):
+        raise InputError("expected 'wet' or 'dry'", key=pre + "basis", value=basis, file=file)
+    y = {}
+    for s in SPECIES:
+        for suf, scale in (("ppm", 1e-6), ("pct", 1e-2)):
+            k = f"{s}_{suf}"
+            if k in ex:
+                v = ex[k]
+                if not isinstance(v, (int, float)) or isinstance(v, bool) or not v >= 0:
+                    raise InputError(f"expected a number >= 0 ({suf})", key=pre + k, value=v,
+                                     file=file)
+                if s in y:
+                    raise InputError(f"give {s} once (as _ppm or _pct)", key=pre + k, file=file)
+                y[s] = v * scale
+    if "N2" in y:
+        raise InputError("N2 is the balance; do not give it", key=pre + "N2", file=file)
+    h2o = y.pop("H2O", 0.0)
+    if h2o >= 1:
+        raise InputError("expected a water fraction below 100 %", key=pre + "H2O_pct",
+                         value=h2o * 100, file=file)
+    if basis == "dry":
+        y = {k: v * (1.0 - h2o) for k, v in y.items()}
+    y["H2O"] = h2o
+    if sum(y.values()) > 1.0:
+        raise InputError("mole fractions add up to more than 100 %", key="exhaust",
+                         value=round(sum(y.values()) * 100, 3), file=file)
+    mass = _quantity(ex, "mass_flow", "kg/s", ("kg_s", "kg/s"), file, pre, required=False)
+    molar = _quantity(ex, "molar_flow", "mol/s", ("mol_s", "mol/s"), file, pre, required=False)
+    if (mass is None) == (molar is None):
+        raise InputError("give exactly one of mass_flow and molar_flow", key=pre + "mass_flow",
+                         file=file)
+    _positive(mass if mass is not None else molar, pre + ("mass_flow" if mass else "molar_flow"),
+              file, "a flow > 0")
+    return Stream.from_mole_fractions(y, T=T, p=p, total_mol_s=molar, mass_kg_s=mass)
+
+
+def parse_brick(b: dict, i: int, file: str) -> Brick:
+    pre = f"brick[{i}]."
+    _unknown(b, _BRICK, file, pre)
+    name = str(b.get("name", f"brick {i + 1}"))
+    ck = b.get("catalyst")
+    if not isinstance(ck, str):
+        raise InputError("expected the key of a catalyst file (see 'aftertreat catalysts')",
+                         key=pre + "catalyst", value=ck, file=file)
+    try:
+        cat = load_catalyst(ck, base=Path(file).parent)
+    except InputError as exc:
+        if exc.file:                  # a problem inside the catalyst file: report it there
+            raise
+        raise InputError(exc.expected, key=pre + "catalyst", value=ck, file=file) from None
+    kind = b.get("substrate", "coated" if isinstance(cat, LayeredCatalyst) else None)
+    if kind not in ("coated", "extruded", "plate"):
+        raise InputError("expected 'coated', 'extruded' or 'plate'" + did_you_mean(kind, (
+            "coated", "extruded", "plate")), key=pre + "substrate", value=kind, file=file)
+    layers = cat.layers if isinstance(cat, LayeredCatalyst) else [(cat, None)]
+    try:
+        if kind == "plate":
+            gap = _quantity(b, "gap", "m", ("mm", "mm"), file, pre)
+            plate = _quantity(b, "plate", "m", ("mm", "mm"), file, pre)
+            sub = Substrate(kind="plate", wall=plate, gap=gap)
+        else:
+            cpsi = b.get("cpsi")
+            if not isinstance(cpsi, (int, float)) or isinstance(cpsi, bool) or not cpsi > 0:
+                raise InputError("expected a cell density in cells per square inch > 0",
+                                 key=pre + "cpsi", value=cpsi, file=file)
+            wall = _quantity(b, "wall", "m", ("mm", "mm"), file, pre, required=False)
+            if wall is None:
+                wall = _quantity(b, "wall", "m", ("mil", "mil"), file, pre)
+            if kind == "coated":
+                wc = b.get("washcoat_um")
+                if wc is None:
+                    if any(t is None for _, t in layers):
+                        raise InputError("expected washcoat_um = [thickness, ...] (one per layer)",
+                                         key=pre + "washcoat_um", file=file)
+                    wc = [t * 1e6 for _, t in layers]
+                if not isinstance(wc, list):
+                    wc = [wc]
+                if len(wc) != len(layers):
+                    raise InputError(f"expected {len(layers)} washcoat thickness(es), one per "
+                                     "catalyst layer", key=pre + "washcoat_um", value=wc,
+                                     file=file)
+                sub = Substrate(kind="coated", wall=wall, cell_density=cpsi / 0.0254 ** 2,
+                                washcoat=tuple(float(t) * 1e-6 for t in wc))
+            else:
+                if len(layers) > 1:
+                    raise InputError("a layered catalyst needs a coated substrate",
+                                     key=pre + "substrate", value=kind, file=file)
+                sub = Substrate(kind="extruded", wall=wall, cell_density=cpsi / 0.0254 ** 2)
+        length = _positive(_quantity(b, "length", "m", ("mm", "mm"), file, pre), pre + "length",
+                           file, "a length > 0")
+        diameter = _positive(_quantity(b, "diameter", "m", ("mm", "mm"), file, pre),
+                             pre + "diameter", file, "a diameter > 0")
+        wm = b.get("washcoat_model")
+        if wm is not None and wm not in WASHCOAT_MODELS:
+            raise InputError(f"expected one of {WASHCOAT_MODELS}", key=pre + "washcoat_model",
+                             value=wm, file=file)
+        kw = {}
+        for key in ("cells", "nodes_per_layer"):
+            if key in b:
+                v = b[key]
+                if not isinstance(v, int) or isinstance(v, bool) or v < 1:
+                    raise InputError("expected a whole number >= 1", key=pre + key, value=v,
+                                     file=file)
+                kw[key] = v
+        if "sherwood" in b:
+            from .transport import sherwood_methods
+            if b["sherwood"] not in sherwood_methods():
+                raise InputError("expected one of " + ", ".join(sherwood_methods())
+                                 + did_you_mean(b["sherwood"], sherwood_methods()),
+                                 key=pre + "sherwood", value=b["sherwood"], file=file)
+            kw["sherwood"] = b["sherwood"]
+        act = b.get("activity", 1.0)
+        if not isinstance(act, (int, float)) or isinstance(act, bool):
+            raise InputError("expected a number in (0, 2]", key=pre + "activity", value=act,
+                             file=file)
+        return Brick(name=name, substrate=sub, catalysts=tuple(c for c, _ in layers),
+                     length=length, diameter=diameter, activity=float(act), washcoat=wm,
+                     heat_loss_W_m2K=float(b.get("heat_loss_W_m2K", 0.0)), **kw)
+    except InputError as exc:
+        if exc.file:
+            raise
+        key = exc.key if exc.key and exc.key.startswith(pre) else (
+            pre + exc.key.split(".")[-1] if exc.key else pre.rstrip("."))
+        raise InputError(exc.expected, key=key, value=exc.value, file=file) from None
+
+
+def parse_case(data: dict, file: str) -> Case:
+    """Validate a case dictionary (as read from TOML) into a :class:`Case`."""
+    _unknown(data, _TOP, file, "")
+    if "exhaust" not in data or not isinstance(data["exhaust"], dict):
+        raise InputError("missing the [exhaust] table", key="exhaust", file=file)
+    bricks = data.get("brick")
+    if not isinstance(bricks, list) or not bricks:
+        raise InputError("expected at least one [[brick]]", key="brick", file=file)
+    exhaust = parse_exhaust(data["exhaust"], file)
+    train = Train([parse_brick(b, i, file) for i, b in enumerate(bricks)])
+    return Case(title=str(data.get("title", Path(file).stem)), train=train, exhaust=exhaust,
+                file=file, data=data)
+
+
+def _parse_value(text: str):
+    """A --set value: TOML syntax when it parses (numbers, quoted strings, lists), else text."""
+    try:
+        return tomllib.loads(f"v = {text}")["v"]
+    except tomllib.TOMLDecodeError:
+        return text
+
+
+def apply_set(data: dict, assignment: str, file: str) -> dict:
+    """Apply one ``KEY=VALUE`` what-if to a copy of the case data.
+
+    KEY is the dotted path in the case file; list items by index or by their ``name``
+    (``brick.0.length`` or ``brick.SCR 1.length``). Only existing tables may be entered, and the
+    last key must be one the table accepts (it is validated with the rest of the case).
+    """
+    if "=" not in assignment:
+        raise InputError("expected KEY=VALUE", key="--set", value=assignment, file=file)
+    path, text = assignment.split("=", 1)
+    keys = [k.strip() for k in path.strip().split(".")]
+    out = copy.deepcopy(data)
+    node = out
+    for depth, k in enumerate(keys[:-1]):
+        where = ".".join(keys[: depth + 1])
+        if isinstance(node, list):
+            idx = None
+            if k.lstrip("-").isdigit():
+                idx = int(k)
+            else:
+                names = [item.get("name") for item in node if isinstance(item, dict)]
+                if k in names:
+                    idx = names.index(k)
+            if idx is None or not -len(node) <= idx < len(node):
+                names = [str(item.get("name")) for item in node if isinstance(item, dict)]
+                raise InputError("no such list item (give an index or a name: "
+                                 + ", ".join(names) + ")" + did_you_mean(k, names),
+                                 key=f"--set {where}", value=k, file=file)
+            node = node[idx]
+        elif isinstance(node, dict):
+            if k not in node:
+                raise InputError("no such table in the case" + did_you_mean(k, node),
+                                 key=f"--set {where}", value=k, file=file)
+            node = node[k]
+        else:
+            raise InputError("not a table", key=f"--set {where}", file=file)
+    if not isinstance(node, dict):
+        raise InputError("the path must end in a key of a table", key=f"--set {path}", file=file)
+    node[keys[-1]] = _parse_value(text.strip())
+    return out
+
+
+def load_case(path: str | Path, sets: list[str] | None = None) -> Case:
+    """Read, override (``--set``) and validate a case file."""
+    file = str(path)
+    data = read_toml(path)
+    for s in sets or []:
+        data = apply_set(data, s, file)
+    return parse_case(data, file)

@@ -1,0 +1,157 @@
+"""The ``aftertreat`` command.
+
+Subcommands:
+    aftertreat point CASE [--set KEY=VALUE ...] [--json]   solve the train at the case's exhaust
+    aftertreat catalysts [KEY]                              list catalysts, or one's provenance
+
+Exit codes: 0 computed (whether or not anything passes), 2 bad input, 1 a failure of ours
+(including a solver that did not converge), with a one-line reason on stderr.
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+
+__all__ = ["main"]
+
+
+def _fail(code: int, text: str) -> int:
+    print(f"aftertreat: {text}", file=sys.stderr)
+    return code
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):             # usage errors are bad input: exit 2, one line
+        self.exit(2, f"aftertreat: {message} (see 'aftertreat --help')\n")
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="aftertreat", description="Size SCR and ammonia-slip catalysts behind "
+                "ammonia-fuelled engines and turbines.")
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
+    pt.add_argument("case", help="case file (TOML)")
+    pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a case value by its dotted path, e.g. "
+                         "'brick.SCR 1.length=700 mm' (repeatable)")
+    pt.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    ct = sub.add_parser("catalysts", help="list the shipped catalysts, or show one's parameters "
+                        "and their provenance")
+    ct.add_argument("key", nargs="?", help="catalyst key or file")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    from .errors import ConvergenceError, InputError
+    args = _build_parser().parse_args(argv)
+    try:
+        if args.command == "point":
+            return _point(args)
+        if args.command == "catalysts":
+            return _catalysts(args)
+    except InputError as exc:
+        return _fail(2, str(exc))
+    except ConvergenceError as exc:
+        return _fail(1, str(exc))
+    except KeyboardInterrupt:
+        return _fail(1, "interrupted")
+    return 0
+
+
+def _point(args) -> int:
+    from .case import load_case
+    from .output import SAFETY_NOTE, point_dict, to_json
+    case = load_case(args.case, args.set)
+    sol = case.train.solve(case.exhaust)
+    if args.json:
+        print(to_json(point_dict(case.title, sol)))
+    else:
+        _print_point(case, sol, SAFETY_NOTE)
+    if not sol.converged:
+        bad = [b.brick.name for b in sol.bricks if not b.converged]
+        return _fail(1, f"solver did not converge in brick(s) {', '.join(bad)} "
+                        f"(scaled residual {sol.residual:.1e}); numbers above are flagged")
+    return 0
+
+
+def _print_point(case, sol, safety: str) -> None:
+    from rich.console import Console
+    from rich.table import Table
+    con = Console()
+    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    inl, out = sol.inlet, sol.outlet
+    con.print(f"exhaust {inl.mass_flow * 3600:.0f} kg/h, {inl.T - 273.15:.1f} C, "
+              f"{inl.p / 1e3:.1f} kPa; GHSV {sol.ghsv_per_h():.0f} 1/h (0 C, 101.325 kPa); "
+              f"NOx conversion {sol.nox_conversion() * 100:.1f} %")
+    t = Table(title="Bricks (outlet values, wet ppm)")
+    for col in ("brick", "role", "vol L", "T out C", "dp kPa", "NO", "NO2", "NH3", "N2O", "ok"):
+        t.add_column(col, justify="left" if col in ("brick", "role") else "right")
+    for b in sol.bricks:
+        o = b.outlet
+        t.add_row(b.brick.name, b.brick.role, f"{b.brick.volume * 1e3:.0f}",
+                  f"{o.T - 273.15:.1f}", f"{b.dp.total_Pa / 1e3:.2f}", f"{o.ppm('NO'):.1f}",
+                  f"{o.ppm('NO2'):.1f}", f"{o.ppm('NH3'):.1f}", f"{o.ppm('N2O'):.1f}",
+                  "yes" if b.converged else f"NO {b.residual:.0e}")
+    con.print(t)
+    s = Table(title="Train inlet and outlet")
+    s.add_column("species")
+    for col in ("in wet", "in dry", "out wet", "out dry"):
+        s.add_column(col, justify="right")
+    iw, idr, ow, od = inl.ppm_wet(), inl.ppm_dry(), out.ppm_wet(), out.ppm_dry()
+    for sp in ("NO", "NO2", "NH3", "N2O"):
+        s.add_row(f"{sp} ppm", f"{iw[sp]:.1f}", f"{idr[sp]:.1f}", f"{ow[sp]:.1f}", f"{od[sp]:.1f}")
+    for sp in ("O2", "H2O"):
+        s.add_row(f"{sp} %", f"{iw[sp] / 1e4:.2f}", f"{idr[sp] / 1e4:.2f}", f"{ow[sp] / 1e4:.2f}",
+                  f"{od[sp] / 1e4:.2f}")
+    con.print(s)
+    con.print(f"element balance error {sol.element_balance_error:.1e}; solved in "
+              f"{sol.seconds * 1e3:.0f} ms. Kinetic parameters and their provenance: "
+              "'aftertreat catalysts KEY'.")
+    con.print(f"[dim]{safety}[/dim]")
+
+
+def _catalysts(args) -> int:
+    from rich.console import Console
+    from rich.table import Table
+    from .catalyst import LayeredCatalyst, available_catalysts, load_catalyst
+    con = Console()
+    if not args.key:
+        t = Table(title="Shipped catalysts")
+        for col in ("key", "role", "valid C", "name", "parameters: transcribed / from memory / "
+                    "fitted"):
+            t.add_column(col)
+        for key in available_catalysts():
+            c = load_catalyst(key)
+            if isinstance(c, LayeredCatalyst):
+                t.add_row(key, c.role, "", c.name,
+                          "layers: " + " over ".join(x.key for x, _ in c.layers))
+                continue
+            rows = c.provenance_table()
+            counts = [sum(r["provenance"].lower().startswith(k) for r in rows)
+                      for k in ("transcribed", "from memory", "fitted")]
+            t.add_row(key, c.role, f"{c.valid_T[0] - 273.15:.0f}-{c.valid_T[1] - 273.15:.0f}",
+                      c.name, " / ".join(map(str, counts)))
+        con.print(t)
+        return 0
+    c = load_catalyst(args.key)
+    con.print(f"[bold]{c.name}[/bold] ({c.file})\n{c.description}")
+    con.print("Sources:")
+    for line in c.citations():
+        con.print(f"  - {line}")
+    if isinstance(c, LayeredCatalyst):
+        for cat, th in c.layers:
+            con.print(f"  layer: {cat.key}, {th * 1e6:.0f} um")
+        return 0
+    t = Table(title="Parameters and provenance")
+    for col in ("item", "parameter", "provenance"):
+        t.add_column(col)
+    for r in c.provenance_table():
+        t.add_row(r["item"], r["parameter"], r["provenance"])
+    con.print(t)
+    if c.notes:
+        con.print(f"Notes: {c.notes}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

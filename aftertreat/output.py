@@ -1,0 +1,97 @@
+"""Results as JSON-ready dictionaries and human tables; safe file writing.
+
+Key names carry their units (``T_out_C``, ``dp_kPa``) and follow the CLI contract of the project.
+"""
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .species import INDEX, SPECIES
+from .stream import Stream
+from .train import TrainSolution
+
+__all__ = ["stream_dict", "point_dict", "write_atomic", "SAFETY_NOTE"]
+
+#: Shown wherever results could guide a real installation.
+SAFETY_NOTE = (
+    "Safety: NH3 is toxic. Odour near 5 ppm, irritation near 30 ppm, intolerable near 140 ppm, "
+    "dangerous from a few hundred ppm (occupational limits: 25 ppm TWA / 35 ppm STEL, "
+    "IDLH 300 ppm - NIOSH, from memory). Stored NH3 is a pressurised or refrigerated (-33 C) "
+    "liquid. Results are model estimates with the parameter provenance shown; local codes, "
+    "permits and licensed engineering practice govern any installation.")
+
+
+def stream_dict(s: Stream) -> dict:
+    """STREAM object: molar flows [mol/s], wet ppm and dry ppm per species."""
+    return {"mol_s": {sp: float(s.F[INDEX[sp]]) for sp in SPECIES},
+            "ppm_wet": s.ppm_wet(),
+            "ppmvd": s.ppm_dry()}
+
+
+def point_dict(case_title: str, sol: TrainSolution) -> dict:
+    """The ``aftertreat.point/1`` object: one operating point of a train."""
+    bricks = []
+    for b in sol.bricks:
+        bricks.append({"name": b.brick.name, "role": b.brick.role,
+                       "catalysts": [c.key for c in b.brick.catalysts],
+                       "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
+                       "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
+                       "residual": b.residual, "iterations": b.iterations,
+                       "outlet": stream_dict(b.outlet)})
+    return {"schema": "aftertreat.point/1", "case": case_title,
+            "exhaust_kg_h": sol.inlet.mass_flow * 3600.0,
+            "T_in_C": sol.inlet.T - 273.15, "T_out_C": sol.outlet.T - 273.15,
+            "GHSV_per_h": sol.ghsv_per_h(), "GHSV_normal_conditions": "0 C, 101.325 kPa",
+            "dp_kPa": sol.dp_Pa / 1e3,
+            "ANR": _anr(sol.inlet), "NOx_conversion": sol.nox_conversion(),
+            "converged": sol.converged, "element_balance_error": sol.element_balance_error,
+            "inlet": stream_dict(sol.inlet), "outlet": stream_dict(sol.outlet),
+            "bricks": bricks, "solve_s": sol.seconds}
+
+
+def _anr(s: Stream) -> float:
+    """NH3 / NOx molar ratio of a stream (NaN without NOx)."""
+    nox = s.F[INDEX["NO"]] + s.F[INDEX["NO2"]]
+    return float(s.F[INDEX["NH3"]] / nox) if nox > 0 else float("nan")
+
+
+def _clean(o):
+    if isinstance(o, float) and not np.isfinite(o):
+        return None
+    if isinstance(o, dict):
+        return {k: _clean(v) for k, v in o.items()}
+    if isinstance(o, list):
+        return [_clean(v) for v in o]
+    if isinstance(o, (np.floating,)):
+        return _clean(float(o))
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, np.bool_):
+        return bool(o)
+    return o
+
+
+def to_json(obj) -> str:
+    """JSON text with NaN and infinities written as null (strict JSON)."""
+    return json.dumps(_clean(obj), indent=2, allow_nan=False)
+
+
+def write_atomic(path: str | Path, text: str | bytes) -> None:
+    """Write a file through a temporary file in the same folder and rename it into place."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    mode = "wb" if isinstance(text, bytes) else "w"
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, mode) as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
