@@ -206,29 +206,35 @@ def solve_chain(case: KineticLimitCase, n: int, phases=None, *, rtol: float = 1e
     surf.TP = case.T, case.p
     surf.coverages = {"S": 1.0}
     mdot = case.mol_s * gas.mean_molecular_weight / 1e3          # [kg/s]
-    upstream = ct.Reservoir(gas, clone=True)
-    reactor = ct.IdealGasReactor(gas, energy="off", volume=case.gas_volume / n, clone=True)
-    wall = ct.ReactorSurface(surf, reactor, A=case.layer_volume / n, clone=True)
-    downstream = ct.Reservoir(gas, clone=True)
+    # One Solution object shared by the reactors, as in Cantera's reactor-chain example: each
+    # reactor keeps its own state vector and syncs the shared object when it evaluates.
+    upstream = ct.Reservoir(gas, clone=False)
+    reactor = ct.IdealGasReactor(gas, energy="off", volume=case.gas_volume / n, clone=False)
+    wall = ct.ReactorSurface(surf, reactor, A=case.layer_volume / n, clone=False)
+    downstream = ct.Reservoir(gas, clone=False)
     mfc = ct.MassFlowController(upstream, reactor, mdot=mdot)
     ct.PressureController(reactor, downstream, primary=mfc, K=1e-5)
     net = ct.ReactorNet([reactor])
     net.rtol, net.atol = rtol, atol
     idx = [gas.species_index(s) for s in GAS_SPECIES]
+    k_nh3s = surf.kinetics_species_index("NH3(S)")
+    k_cov = surf.species_index("NH3(S)")
     X = np.empty((n, len(GAS_SPECIES)))
     cov = np.empty(n)
     res = 0.0
-    k_nh3s = surf.species_index("NH3(S)")
     for j in range(n):
-        net.initial_time = 0.0           # restart the clock (and the integrator) at this state
+        if j:
+            net.initial_time = 0.0      # restart the integrator from the current (warm) state
         net.advance_to_steady_state()
-        # steady check on the surface: d theta/dt = sdot / Gamma [1/s]
-        sdot = wall.phase.net_production_rates[k_nh3s] / wall.phase.site_density
-        res = max(res, abs(float(sdot)))
         X[j] = reactor.phase.X[idx]
-        cov[j] = wall.coverages[k_nh3s]
-        # next reactor: its feed is this outlet; it starts from this state (warm start)
-        upstream.phase.TPX = case.T, case.p, reactor.phase.X
+        cov[j] = wall.coverages[k_cov]
+        # steady check on the surface at the final state: d theta/dt = sdot / Gamma [1/s]
+        gas.TPX = case.T, case.p, reactor.phase.X
+        surf.TP = case.T, case.p
+        surf.coverages = wall.coverages
+        sdot = surf.net_production_rates[k_nh3s]
+        res = max(res, abs(float(sdot)) / surf.site_density)
+        # next reactor: fed with this outlet (gas holds it now), started from this state
         upstream.syncState()
     X_out = {s: float(v) for s, v in zip(GAS_SPECIES, X[-1])}
     return ChainResult(n=n, X_out=X_out, X=X, coverage=cov,
