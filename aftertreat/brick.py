@@ -45,7 +45,7 @@ class Brick:
     diameter: float
     activity: float = 1.0
     washcoat: str | None = None
-    nodes_per_layer: int = 4
+    nodes_per_layer: int = 6
     cells: int = 40
     sherwood: str = "tronconi_forzatti_1992"
     film: bool = True

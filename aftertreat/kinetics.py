@@ -341,7 +341,8 @@ def build_reaction(spec: dict, sites: list[str], *, file: str | None = None,
                              key=f"{where}.equation", value=spec.get("equation"), file=file)
         nu = nu_gas.copy()
         kw["nu"] = nu
-        kw["log_kc"] = lambda T, nu=nu: np.log(thermo.equilibrium_constant_c(nu, T))
+        table = thermo.ReactionTable(nu)
+        kw["log_kc"] = lambda T, table=table: table.log_kc(T)[..., 0]
     if form == "langmuir_hinshelwood":
         inh = {}
         for sp, p in dict(spec.get("inhibition", {})).items():
@@ -382,6 +383,7 @@ class Mechanism:
     capacity: np.ndarray            # [nsite] mol per m^3 of catalytic layer
 
     def __post_init__(self):
+        self._thermo = None
         self.nu_gas = np.array([r.nu_gas for r in self.reactions]).reshape(-1, len(SPECIES))
         self.nu_equiv = np.array([r.nu_equiv for r in self.reactions]).reshape(-1, len(SPECIES))
         self.nu_site = np.array([r.nu_site for r in self.reactions]).reshape(
@@ -421,8 +423,10 @@ class Mechanism:
     def reaction_enthalpy(self, T):
         """Reaction enthalpies [J per reaction as written], shape ``T.shape + (nrxn,)``.
 
-        From NASA-7 data with stored NH3 counted as gas NH3 (adsorption heats net to zero at
-        steady state).
+        From NASA-7 data (tabulated, :class:`aftertreat.thermo.ReactionTable`) with stored NH3
+        counted as gas NH3 (adsorption heats net to zero at steady state).
         """
-        from . import thermo
-        return thermo.h_molar(T) @ self.nu_equiv.T
+        if self._thermo is None:
+            from . import thermo
+            self._thermo = thermo.ReactionTable(self.nu_equiv.T)
+        return self._thermo.enthalpy(T)

@@ -25,7 +25,10 @@ MIL = 25.4e-6
 @lru_cache(maxsize=1)
 def _registry():
     import pint
-    reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    try:    # pint caches its parsed definitions on disk: ~15 ms instead of ~0.5 s at start-up
+        reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=":auto:")
+    except Exception:
+        reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
     reg.define("cpsi = 1 / inch**2")
     reg.define("ppm = 1e-6 = ppmv")
     return reg
