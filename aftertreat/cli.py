@@ -104,6 +104,8 @@ def _print_point(case, sol, safety: str) -> None:
         s.add_row(f"{sp} %", f"{iw[sp] / 1e4:.2f}", f"{idr[sp] / 1e4:.2f}", f"{ow[sp] / 1e4:.2f}",
                   f"{od[sp] / 1e4:.2f}")
     con.print(s)
+    for w in sol.warnings:
+        con.print(f"[yellow]note: {w}[/yellow]")
     con.print(f"element balance error {sol.element_balance_error:.1e}; solved in "
               f"{sol.seconds * 1e3:.0f} ms. Kinetic parameters and their provenance: "
               "'aftertreat catalysts KEY'.")

@@ -51,7 +51,7 @@ def point_dict(case_title: str, sol: TrainSolution) -> dict:
             "ANR": _anr(sol.inlet), "NOx_conversion": sol.nox_conversion(),
             "converged": sol.converged, "element_balance_error": sol.element_balance_error,
             "inlet": stream_dict(sol.inlet), "outlet": stream_dict(sol.outlet),
-            "bricks": bricks, "solve_s": sol.seconds}
+            "bricks": bricks, "warnings": sol.warnings, "solve_s": sol.seconds}
 
 
 def _anr(s: Stream) -> float:

@@ -583,6 +583,13 @@ def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds)
                                  inlet.mass_flow, model.A, rho, mu,
                                  apparent=b.apparent_friction)
     outlet = Stream(F=np.maximum(F[-1], 0.0), T=float(Tg[-1]), p=inlet.p - dp.total_Pa)
+    notes = list(model.notes)
+    for cat in b.catalysts:
+        lo, hi = cat.valid_T
+        if Ts.max() > hi or Ts.min() < lo:
+            notes.append(f"catalyst temperature reached {Ts.min() - 273.15:.0f}.."
+                         f"{Ts.max() - 273.15:.0f} C, outside the validity range "
+                         f"{lo - 273.15:.0f}..{hi - 273.15:.0f} C of '{cat.key}'")
     atoms_in = ELEMENT_MATRIX @ inlet.F
     err = float(np.max(np.abs(ELEMENT_MATRIX @ outlet.F - atoms_in)) / np.max(atoms_in))
     return BrickSolution(
@@ -592,7 +599,7 @@ def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds)
         c_surface=x[:, model.ic0:model.ith0].reshape(n, model.nnode, model.nf).copy(),
         film_species=[SPECIES[i] for i in model.film], node_layer=model.node_layer,
         extents=extents, dp=dp, converged=bool(converged), residual=float(res), iterations=its,
-        element_balance_error=err, seconds=seconds, notes=list(model.notes), state=x.copy())
+        element_balance_error=err, seconds=seconds, notes=notes, state=x.copy())
 
 
 def require_converged(sol: BrickSolution) -> BrickSolution:

@@ -71,6 +71,11 @@ class TrainSolution:
     notes: list[str] = field(default_factory=list)
 
     @property
+    def warnings(self) -> list[str]:
+        """Notes from every brick (correlation substitutions, temperatures out of range)."""
+        return [f"{b.brick.name}: {n}" for b in self.bricks for n in b.notes]
+
+    @property
     def outlet(self) -> Stream:
         return self.bricks[-1].outlet
 
