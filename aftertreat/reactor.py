@@ -56,7 +56,7 @@ class SolverSettings:
     Scaled residuals: species flows / inlet total flow [-]; temperatures [K]; film balances /
     (k_m c_total) [-]; coverage balances / capacity [1/s].
     """
-    tol: float = 1e-10
+    tol: float = 1e-12
     max_newton: int = 40
     max_ptc_steps: int = 200
     tau0: float = 1e-3           # first pseudo-time step [s]
@@ -354,10 +354,14 @@ class _BrickModel:
         h = self.Nu[rows] * cond / self.d_h                                  # [n] W/(m2 K)
         hA = h * self.A_ht
         cp = self.gas.cp_molar(Tg)
-        Tg_mean = Ts + signed_log_mean(Tg_in - Ts, Tg - Ts)        # log-mean temperature difference
-        R[:, self.iTg] = (Ftot * cp * (Tg - Tg_in) - hA * (Ts - Tg_mean)) / (self.F_in_tot * self.cp_ref)
+        # gas heated by a solid at constant T_s along the cell: exact exponential approach,
+        # T_out - T_s = (T_in - T_s) exp(-NTU), NTU = h A / (F c_p) (smooth everywhere, unlike
+        # a log-mean temperature difference); the gas takes q = F c_p (T_out - T_in).
+        Fcp = Ftot * cp
+        R[:, self.iTg] = Tg - Ts - (Tg_in - Ts) * np.exp(-hA / Fcp)
+        q = Fcp * (Tg - Tg_in)
         loss = self.loss_UA * (Ts - self.brick.T_ambient)
-        R[:, self.iTs] = (hA * (Tg_mean - Ts) + Q - loss) / hA
+        R[:, self.iTs] = (Q - q - loss) / hA
         # film and washcoat diffusion
         cbf = cb[:, self.film_idx]
         if self.brick.film:
@@ -491,17 +495,20 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
 
     Pseudo-transient continuation (Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508) advances
     coverage and solid temperature by implicit Euler steps whose size grows as the residual falls
-    (switched evolution relaxation), then hands over to Newton.
+    (switched evolution relaxation), then hands over to Newton. The total number of linear solves
+    is bounded by ``max_newton + max_ptc_steps``, and continuation restarts at most twice.
     """
     diag_mask = np.zeros(model.nv)
     diag_mask[model.ith0:] = 1.0
     diag_mask[model.iTs] = 1.0
     x = x0.copy()
     its = 0
+    budget = st.max_newton + st.max_ptc_steps
+    newton_left = st.max_newton
+    restarts = 0
     tau = None                                 # None: plain Newton
-    ptc_steps = 0
     ref = np.inf                               # non-monotone reference for the line search
-    while its < st.max_newton + st.max_ptc_steps:
+    while its < budget:
         F_in, Tg_in = model.inflow(x)
         R = model.residual(x, F_in, Tg_in)
         res = _norm(model, R)
@@ -514,7 +521,7 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
         except np.linalg.LinAlgError:
             dx = np.full_like(x, np.nan)
         its += 1
-        alpha, accepted = 1.0, False
+        alpha, accepted, res_new = 1.0, False, np.inf
         for _ in range(10):
             x_new = model.clip(x + alpha * dx)
             R_new = model.residual(x_new, *model.inflow(x_new))
@@ -524,22 +531,24 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
                 break
             alpha *= 0.5
         if tau is None:
+            newton_left -= 1
             stalled = alpha < 1.0 / 64.0 and res_new > 0.5 * res
-            if accepted and not stalled and its <= st.max_newton:
+            if accepted and not stalled and newton_left >= 0:
                 x = x_new
                 continue
+            if restarts >= 2 or st.max_ptc_steps <= 0:
+                break
             # Newton stalled: restart from the crude state with pseudo-time stepping
-            x, tau = model.initial_state(), st.tau0
+            restarts += 1
+            x, tau, ref = model.initial_state(), st.tau0, np.inf
             continue
-        ptc_steps += 1
         if not np.isfinite(res_new):
             tau *= 0.1
             continue
         x = x_new
         tau *= min(max(res / max(res_new, 1e-300), 2.0), 100.0)
         if tau > 1e6:
-            tau = None                         # close enough: finish with Newton
-            st = SolverSettings(**{**st.__dict__, "max_newton": its + st.max_newton})
+            tau, newton_left, ref = None, st.max_newton, np.inf   # finish with Newton
     return x, its
 
 
