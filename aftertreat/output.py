@@ -20,10 +20,11 @@ __all__ = ["stream_dict", "point_dict", "write_atomic", "SAFETY_NOTE"]
 #: Shown wherever results could guide a real installation.
 SAFETY_NOTE = (
     "Safety: NH3 is toxic. Odour near 5 ppm, irritation near 30 ppm, intolerable near 140 ppm, "
-    "dangerous from a few hundred ppm (occupational limits: 25 ppm TWA / 35 ppm STEL, "
-    "IDLH 300 ppm - NIOSH, from memory). Stored NH3 is a pressurised or refrigerated (-33 C) "
-    "liquid. Results are model estimates with the parameter provenance shown; local codes, "
-    "permits and licensed engineering practice govern any installation.")
+    "dangerous from a few hundred ppm (NIOSH: 25 ppm 10-h average, 35 ppm 15-min, 300 ppm "
+    "immediately dangerous to life or health). Stored NH3 is a pressurised liquid (about 9 bar "
+    "at 20 C) or a refrigerated liquid (boils at -33 C). Results are model estimates with the "
+    "parameter provenance shown; local codes, permits and licensed engineering practice govern "
+    "any installation.")
 
 
 def stream_dict(s: Stream) -> dict:
