@@ -1,0 +1,182 @@
+"""Bad input is refused with an InputError that names the value and the key (and the file, where
+there is one); a solve that cannot converge reports it instead of raising."""
+import numpy as np
+import pytest
+
+import aftertreat as at
+from aftertreat import InputError
+from aftertreat.catalyst import parse_catalyst
+
+CAT_FILE = "<test catalyst>"
+
+
+def _msg(exc_info):
+    return str(exc_info.value)
+
+
+def _parse(table):
+    return parse_catalyst(table, key="test", file=CAT_FILE)
+
+
+def _reaction(**over):
+    r = {"name": "decomposition", "equation": "N2O -> N2 + 0.5 O2", "form": "power_law",
+         "k_ref": 1.0, "E_kJ_mol": 50.0, "orders": {"N2O": 1}}
+    r.update(over)
+    return r
+
+
+# ---- geometry --------------------------------------------------------------------------------
+def test_washcoat_thicker_than_channel():
+    with pytest.raises(InputError) as e:
+        at.Substrate.coated(cpsi=400, wall_mil=4, washcoat_um=(700,))
+    assert e.value.key == "washcoat"
+    assert "0.0007" in _msg(e) and "washcoat" in _msg(e)
+
+
+def test_wall_thicker_than_pitch():
+    with pytest.raises(InputError) as e:
+        at.Substrate.extruded(cpsi=35, wall_mm=5.0)
+    assert e.value.key == "wall" and "0.005" in _msg(e)
+
+
+def test_open_frontal_area_of_one_is_refused():
+    """OFA = 1 is reachable by round-off: a wall of 1e-300 m leaves (p - t_w)/p == 1.0."""
+    with pytest.raises(InputError) as e:
+        at.Substrate("extruded", 1e-300, cell_density=35 / 0.0254 ** 2)
+    assert e.value.key == "ofa" and "1.0" in _msg(e)
+
+
+@pytest.mark.parametrize("key,value", [("length", -0.1), ("diameter", 0.0),
+                                       ("length", float("nan"))])
+def test_brick_size_must_be_positive(key, value):
+    kw = {"length": 0.5, "diameter": 0.5, key: value}
+    with pytest.raises(InputError) as e:
+        at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7),
+                 at.load_catalyst("vanadia_extruded"), **kw)
+    assert e.value.key == f"SCR 1.{key}" and str(value) in _msg(e)
+
+
+# ---- streams ---------------------------------------------------------------------------------
+def test_negative_molar_flow():
+    F = np.full(len(at.SPECIES), 0.1)
+    F[at.SPECIES.index("NH3")] = -1e-6
+    with pytest.raises(InputError) as e:
+        at.Stream(F=F, T=600.0)
+    assert "NH3" in e.value.key and "-1e-06" in _msg(e)
+
+
+def test_negative_mole_fraction():
+    with pytest.raises(InputError) as e:
+        at.Stream.from_mole_fractions({"NO": -800e-6}, T=600.0, total_mol_s=1.0)
+    assert e.value.key == "NO" and "-0.0008" in _msg(e)
+
+
+def test_unknown_species_in_stream_suggests_name():
+    with pytest.raises(InputError) as e:
+        at.Stream.from_mole_fractions({"H20": 0.1}, T=600.0, total_mol_s=1.0)
+    assert e.value.key == "H20" and "did you mean" in _msg(e) and "H2O" in _msg(e)
+
+
+# ---- operating point -------------------------------------------------------------------------
+def test_temperature_outside_catalyst_range():
+    cat = at.load_catalyst("vanadia_extruded")
+    s = at.Stream.from_mole_fractions({"NO": 800e-6, "NH3": 800e-6, "O2": 0.1, "H2O": 0.08},
+                                      T=700 + 273.15, mass_kg_s=1.2)
+    b = at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7), cat, length=0.6,
+                 diameter=0.8)
+    with pytest.raises(InputError) as e:
+        at.solve_brick(b, s)
+    assert e.value.key == "valid_T_C" and e.value.file == cat.file
+    assert "700" in _msg(e) and "SCR 1" in _msg(e) and "vanadia_extruded" in _msg(e)
+
+
+def test_pressure_drop_beyond_inlet_pressure_names_brick():
+    """A brick whose pressure drop exceeds the inlet pressure is an input problem (too long /
+    too fine / too much flow); the error should say which brick (common practice)."""
+    s = at.Stream.from_mole_fractions({"NO": 800e-6, "NH3": 800e-6, "O2": 0.1, "H2O": 0.08},
+                                      T=350 + 273.15, mass_kg_s=50.0)
+    b = at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7),
+                 at.load_catalyst("vanadia_extruded"), length=3.0, diameter=0.3)
+    with pytest.raises(InputError) as e:
+        at.solve_brick(b, s)
+    assert "SCR 1" in _msg(e)
+
+
+# ---- catalyst files --------------------------------------------------------------------------
+def test_unbalanced_reaction(catalyst_dict):
+    with pytest.raises(InputError) as e:
+        _parse(catalyst_dict([_reaction(equation="N2O -> N2 + O2")]))
+    assert e.value.key == "reaction[0].equation" and e.value.file == CAT_FILE
+    assert "N2O -> N2 + O2" in _msg(e) and "'O': 1.0" in _msg(e) and CAT_FILE in _msg(e)
+
+
+def test_unknown_rate_form_suggests_name(catalyst_dict):
+    with pytest.raises(InputError) as e:
+        _parse(catalyst_dict([_reaction(form="power_lw")]))
+    assert e.value.key == "reaction[0].form" and "power_lw" in _msg(e)
+    assert "did you mean power_law" in _msg(e) and CAT_FILE in _msg(e)
+
+
+def test_unknown_species_in_equation_suggests_name(catalyst_dict):
+    with pytest.raises(InputError) as e:
+        _parse(catalyst_dict([_reaction(equation="N20 -> N2 + 0.5 O2")]))
+    assert e.value.key == "reaction[0].equation" and "N20" in _msg(e)
+    assert "did you mean" in _msg(e) and "N2O" in _msg(e) and CAT_FILE in _msg(e)
+
+
+def test_unknown_species_in_orders_suggests_name(catalyst_dict):
+    with pytest.raises(InputError) as e:
+        _parse(catalyst_dict([_reaction(orders={"NH4": 1})]))
+    assert e.value.key == "reaction[0].orders.NH4"
+    assert "did you mean" in _msg(e) and "NH3" in _msg(e) and CAT_FILE in _msg(e)
+
+
+def test_unknown_reaction_key_suggests_name(catalyst_dict):
+    r = _reaction()
+    r["k_rf"] = r.pop("k_ref")
+    with pytest.raises(InputError) as e:
+        _parse(catalyst_dict([r]))
+    assert e.value.key == "reaction[0].k_rf" and "did you mean k_ref" in _msg(e)
+    assert CAT_FILE in _msg(e)
+
+
+def test_unknown_top_level_key_suggests_name(catalyst_dict):
+    table = catalyst_dict([_reaction()])
+    table["valid_T"] = table.pop("valid_T_C")
+    with pytest.raises(InputError) as e:
+        _parse(table)
+    assert e.value.key == "valid_T" and "did you mean valid_T_C" in _msg(e)
+
+
+def test_missing_provenance(catalyst_dict):
+    table = catalyst_dict([_reaction()])
+    del table["reaction"][0]["provenance"]["E_kJ_mol"]
+    with pytest.raises(InputError) as e:
+        _parse(table)
+    assert e.value.key == "reaction[0].provenance.E_kJ_mol" and CAT_FILE in _msg(e)
+
+
+def test_unknown_catalyst_key_suggests_name():
+    with pytest.raises(InputError) as e:
+        at.load_catalyst("vanadia_extrudd")
+    assert "vanadia_extrudd" in _msg(e) and "did you mean vanadia_extruded" in _msg(e)
+
+
+# ---- non-convergence -------------------------------------------------------------------------
+def test_non_convergence_is_reported_not_raised(deadline):
+    """One Newton step and no continuation cannot solve a coupled SCR brick from the crude start:
+    the result says converged == False with its residual, and nothing is raised."""
+    s = at.Stream.from_mole_fractions({"NO": 800e-6, "NH3": 800e-6, "O2": 0.1, "H2O": 0.08},
+                                      T=350 + 273.15, mass_kg_s=1.2)
+    b = at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7),
+                 at.load_catalyst("vanadia_extruded"), length=0.6, diameter=0.8)
+    with deadline(30):
+        sol = at.solve_brick(b, s, settings=at.SolverSettings(max_newton=1, max_ptc_steps=0))
+        train = at.Train([b]).solve(s, settings=at.SolverSettings(max_newton=1,
+                                                                   max_ptc_steps=0))
+    assert sol.converged is False
+    assert sol.residual > at.SolverSettings().tol
+    assert train.converged is False
+    with pytest.raises(at.ConvergenceError):
+        from aftertreat.reactor import require_converged
+        require_converged(sol)
