@@ -97,6 +97,17 @@ def _pos(c):
     return np.maximum(c, 0.0)
 
 
+def _power(c, n):
+    """c**n for a rate law. Whole orders take c as it is, so rates stay smooth through c = 0
+    (Newton iterates may dip slightly below zero; a clipped rate has a kink there that makes
+    Newton cycle). Fractional orders need c >= 0 and clip."""
+    if n == 1.0:
+        return c
+    if float(n).is_integer():
+        return c ** int(n)
+    return _pos(c) ** n
+
+
 # --------------------------------------------------------------------------------------------
 # rate-law forms
 # --------------------------------------------------------------------------------------------
@@ -116,8 +127,7 @@ class _Form:
     def _conc_part(self, c):
         out = 1.0
         for i, n in self.orders.items():
-            ci = _pos(c[..., i])
-            out = out * (ci if n == 1.0 else ci ** n)
+            out = out * _power(c[..., i], n)
         return out
 
     def _cov_part(self, theta):
@@ -174,11 +184,10 @@ class Reversible(_Form):
         rev = 1.0
         for i in np.nonzero(self.nu)[0]:
             n = self.nu[i]
-            ci = _pos(c[..., i])
             if n < 0:
-                fwd = fwd * (ci if n == -1.0 else ci ** (-n))
+                fwd = fwd * _power(c[..., i], -n)
             else:
-                rev = rev * (ci if n == 1.0 else ci ** n)
+                rev = rev * _power(c[..., i], n)
         return self.k(T) * (fwd - rev * np.exp(-self.log_kc(T))) * self._cov_part(theta)
 
 

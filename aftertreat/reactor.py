@@ -102,9 +102,27 @@ def _log_mean_pos(a, b):
     return np.where(close, 0.5 * (a + b), lm)
 
 
+_FLOOR = 1e-3
+
+
 def cell_mean(c_in, c_out):
-    """Mean concentration over a cell: log mean where it falls, arithmetic mean where it rises."""
-    return np.where(c_out < c_in, _log_mean_pos(c_in, c_out), 0.5 * (c_in + c_out))
+    """Mean concentration over a cell: log mean where it falls, arithmetic mean where it rises.
+
+    Below c_out = 1e-3 c_in the log mean is continued linearly with its slope there, so the
+    function stays smooth, strictly increasing and of moderate slope for Newton iterates near or
+    below zero (a flat floor stalls Newton; the exact slope, ~(c_in/c_out)/ln^2, makes it
+    diverge). A cell in which a species falls more than 1000-fold (NTU > 7 in one cell) is far
+    from resolved anyway; there the mean is overestimated by up to ~15 %.
+    """
+    falling = (c_out < c_in) & (c_in > 0)
+    a = np.where(falling, c_in, 1.0)
+    b = np.where(falling, np.maximum(c_out, _FLOOR * a), 1.0)
+    lnr = np.log(a / b)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lm = np.where(np.abs(a - b) <= 1e-6 * (a + b), 0.5 * (a + b), (a - b) / lnr)
+        slope = np.where(lnr > 1e-6, (a / b - 1.0 - lnr) / lnr ** 2, 0.5)
+    lm = lm + slope * np.minimum(np.where(falling, c_out, 1.0) - b, 0.0)
+    return np.where(falling, lm, 0.5 * (c_in + c_out))
 
 
 def signed_log_mean(d_in, d_out):
@@ -310,8 +328,10 @@ class _BrickModel:
         delta = self.depths[k]
         for key in np.unique(keys[keys >= 0]):
             sel = keys == key
-            kv = (np.abs(m.nu_equiv[sel, key]) * np.maximum(r[..., sel], 0.0)).sum(-1)
-            kv = kv / np.maximum(c_full[..., key], 1e-30)                   # [n, 1]
+            kv = (np.abs(m.nu_equiv[sel, key]) * r[..., sel]).sum(-1)
+            ck = c_full[..., key]
+            ck = np.where(np.abs(ck) < 1e-30, 1e-30, ck)
+            kv = np.maximum(kv / ck, 0.0)        # r / c: smooth through c = 0 for first order
             phi = delta * np.sqrt(kv / D_eff[:, None, key])
             e = np.where(phi > 1e-6, np.tanh(phi) / np.where(phi > 1e-6, phi, 1.0),
                          1.0 - phi ** 2 / 3.0)
@@ -513,6 +533,74 @@ def _norm(model: _BrickModel, R) -> float:
     return float(np.max(w))
 
 
+def _solve_cell(model: _BrickModel, j: int, xj, F_in, Tg_in, st: SolverSettings, diag_mask):
+    """Solve the balances of cell ``j`` alone for a given inflow (Newton, then local
+    pseudo-transient continuation if Newton does not converge). Returns (x_j, converged)."""
+    nv = model.nv
+    rows1 = np.array([j])
+    rowsn = np.full(nv, j)
+    Fn = np.broadcast_to(F_in, (nv, NSP))
+    Tn = np.full(nv, Tg_in)
+
+    def res_of(v):
+        return model.residual(v[None, :], F_in[None, :], np.array([Tg_in]), rows1)[0]
+
+    x = xj.copy()
+    tau = None
+    for it in range(60):
+        R = res_of(x)
+        res = _norm(model, R[None, :])
+        if res < st.tol:
+            return x, True
+        h = st.fd_step * model.scales(x[None, :])[0]
+        h[model.ith0:] = np.where(x[model.ith0:] > 0.5, -h[model.ith0:], h[model.ith0:])
+        X = x[None, :] + np.diag(h)
+        Jm = ((model.residual(X, Fn, Tn, rowsn) - R[None, :]) / h[:, None]).T
+        if tau is not None:
+            Jm = Jm - np.diag(diag_mask / tau)
+        try:
+            dx = np.linalg.solve(Jm, -R)
+        except np.linalg.LinAlgError:
+            dx = np.linalg.lstsq(Jm, -R, rcond=None)[0]
+        alpha = 1.0
+        for _ in range(8):
+            xn = model.clip((x + alpha * dx)[None, :])[0]
+            rn = _norm(model, res_of(xn)[None, :])
+            if np.isfinite(rn) and (rn < res or tau is not None):
+                break
+            alpha *= 0.5
+        if not np.isfinite(rn):
+            if tau is None:
+                tau = 1e-2
+            tau *= 0.1
+            continue
+        if tau is None and rn >= res:
+            tau = 1e-2                        # Newton failed here: pseudo-time on this cell
+            continue
+        x = xn
+        if tau is not None:
+            tau *= min(max(res / max(rn, 1e-300), 0.2), 10.0)
+            if tau > 1e6:
+                tau = None
+    return x, _norm(model, res_of(x)[None, :]) < st.tol
+
+
+def _march(model: _BrickModel, x0, st: SolverSettings):
+    """Solve cell after cell downstream: exact for the upwind (block-triangular) balances, and
+    robust, since each cell starts from its converged upstream neighbour."""
+    diag_mask = np.zeros(model.nv)
+    diag_mask[model.ith0:] = model.site_used.ravel() if model.ns else 0.0
+    diag_mask[model.iTs] = 1.0
+    x = x0.copy()
+    F_in, Tg_in = model.inlet.F.copy(), model.inlet.T
+    for j in range(model.n):
+        start = x[j] if j == 0 else x[j - 1]
+        xj, _ = _solve_cell(model, j, start, F_in, Tg_in, st, diag_mask)
+        x[j] = xj
+        F_in, Tg_in = xj[:NSP].copy(), xj[model.iTg]
+    return x
+
+
 def _iterate(model: _BrickModel, x0, st: SolverSettings):
     """Newton with backtracking; on stagnation, pseudo-transient continuation from the start.
 
@@ -522,7 +610,7 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
     is bounded by ``max_newton + max_ptc_steps``, and continuation restarts at most twice.
     """
     diag_mask = np.zeros(model.nv)
-    diag_mask[model.ith0:] = 1.0
+    diag_mask[model.ith0:] = model.site_used.ravel() if model.ns else 0.0
     diag_mask[model.iTs] = 1.0
     x = x0.copy()
     its = 0
@@ -537,7 +625,10 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
         res = _norm(model, R)
         if res < st.tol:
             break
-        ref = min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res
+        # non-monotone acceptance for the first Newton steps (they may cross a ridge), then
+        # plain decrease, which breaks the two-cycles that kinks in the model can cause
+        ref = (min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res) \
+            if newton_left > st.max_newton - 4 else res
         diag = None if tau is None else diag_mask / tau
         try:
             dx = _newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
@@ -561,15 +652,20 @@ def _iterate(model: _BrickModel, x0, st: SolverSettings):
                 continue
             if restarts >= 2 or st.max_ptc_steps <= 0:
                 break
-            # Newton stalled: restart from the crude state with pseudo-time stepping
             restarts += 1
+            if restarts == 1:
+                # Newton stalled: solve cell by cell from the inlet, then polish with Newton
+                x, newton_left, ref = _march(model, model.initial_state(), st), st.max_newton, np.inf
+                continue
+            # still stalled: restart from the crude state with pseudo-time stepping
             x, tau, ref = model.initial_state(), st.tau0, np.inf
             continue
         if not np.isfinite(res_new):
             tau *= 0.1
             continue
         x = x_new
-        tau *= min(max(res / max(res_new, 1e-300), 2.0), 100.0)
+        # switched evolution relaxation (Mulder & van Leer 1985): step grows as the residual falls
+        tau *= min(max(res / max(res_new, 1e-300), 0.2), 10.0)
         if tau > 1e6:
             tau, newton_left, ref = None, st.max_newton, np.inf   # finish with Newton
     return x, its

@@ -169,8 +169,11 @@ class ReactionTable:
     def _weights(self, T):
         T = np.asarray(T, dtype=float)
         x = np.clip((T - self.T0) / self.DT, 0.0, (self._dH.shape[0] - 1) - 1e-9)
+        bad = ~np.isfinite(x)
+        x = np.where(bad, 0.0, x)
         i = x.astype(int)
-        return i, (x - i)[..., None]
+        w = np.where(bad, np.nan, x - i)        # a non-finite T gives NaN, not an index error
+        return i, w[..., None]
 
     def enthalpy(self, T):
         """Reaction enthalpies [J per reaction as written], shape T.shape + (nrxn,)."""

@@ -58,9 +58,7 @@ CATALYSTS = ["vanadia_extruded", "cu_chabazite", "fe_zeolite", "asc_dual_layer"]
 
 @pytest.mark.parametrize("kind", [
     "vanadia_extruded", "cu_chabazite", "fe_zeolite",
-    pytest.param("asc_dual_layer", marks=pytest.mark.xfail(strict=True, reason=(
-        "library: the ASC solve stalls at residual 1.6e-6 for T = 253.6 C, NO 0, NO2 139, "
-        "NH3 1.1, N2O 31 ppm, O2 9.5 %, H2O 10.5 % (20 cells, 3 nodes per layer)")))])
+    "asc_dual_layer"])
 def test_element_balance_random_feeds(kind, deadline):
     """N, H and O close to 1e-9 relative at every cell outlet and at the brick outlet, for random
     feeds within the catalyst's validity range (conservation of atoms; every reaction is checked
@@ -208,9 +206,6 @@ def test_converged_flag_not_at_roundoff(kind, T_C, cells, deadline):
     assert sol.converged, f"residual {sol.residual:.2e}"
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "library: on a coarse grid (8 cells) Cu-CHA / Fe-zeolite solves end with scaled residuals "
-    "of 1e-2..1 and element balances off by up to 3e-4"))
 @pytest.mark.parametrize("kind,T_C,ppm", [
     ("cu_chabazite", 259.6, dict(NO=593, NO2=209, NH3=719, N2O=32)),
     ("fe_zeolite", 599.1, dict(NO=1003, NO2=373, NH3=669, N2O=44))])
