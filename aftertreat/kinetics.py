@@ -202,13 +202,17 @@ class LangmuirHinshelwood(_Form):
         den = 1.0
         for i, (K_ref, dH, T_ref) in self.inhibition.items():
             den = den + K_ref * np.exp(-dH / R_GAS * (1.0 / T - 1.0 / T_ref)) * _pos(c[..., i])
-        r = self.k(T) * self._conc_part(c) * self._cov_part(theta) / den ** self.inhibition_order
+        fwd = self._conc_part(c)
         if self.log_kc is not None:
-            q = 1.0
-            for i in np.nonzero(self.nu)[0]:
-                q = q * np.maximum(c[..., i], 1e-30) ** self.nu[i]
-            r = r * (1.0 - q * np.exp(-self.log_kc(T)))
-        return r
+            # k prod c^n (1 - Q/Kc) written without dividing by concentrations:
+            # prod c^n - prod c^(n + nu) / Kc  (exponents n + nu >= 0, checked at load)
+            back = 1.0
+            for i in set(self.orders) | set(np.nonzero(self.nu)[0]):
+                e = self.orders.get(i, 0.0) + self.nu[i]
+                if e != 0.0:
+                    back = back * _power(c[..., i], e)
+            fwd = fwd - back * np.exp(-self.log_kc(T))
+        return self.k(T) * fwd * self._cov_part(theta) / den ** self.inhibition_order
 
 
 #: Rate-law forms by name, with the parameter keys each accepts beyond the Arrhenius ones.
@@ -352,6 +356,12 @@ def build_reaction(spec: dict, sites: list[str], *, file: str | None = None,
         kw["nu"] = nu
         table = thermo.ReactionTable(nu)
         kw["log_kc"] = lambda T, table=table: table.log_kc(T)[..., 0]
+    if form == "langmuir_hinshelwood" and wants_rev:
+        for i in np.nonzero(nu_gas)[0]:
+            if kw["orders"].get(i, 0.0) + nu_gas[i] < 0:
+                raise InputError(f"a reversible rate needs the order of {SPECIES[i]} to be at "
+                                 f"least its stoichiometric coefficient {-nu_gas[i]:g}",
+                                 key=f"{where}.orders", value=spec.get("orders"), file=file)
     if form == "langmuir_hinshelwood":
         inh = {}
         for sp, p in dict(spec.get("inhibition", {})).items():

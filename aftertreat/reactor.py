@@ -267,7 +267,7 @@ class _BrickModel:
             r = self.residual(x, F_in, Tg_in)[:, self.ith0:]
             lo = np.where(r > 0, mid, lo)
             hi = np.where(r > 0, hi, mid)
-        x[:, self.ith0:] = 0.5 * (lo + hi)
+        x[:, self.ith0:] = np.where(self.site_used.ravel(), 0.5 * (lo + hi), 0.0)
 
     def scales(self, x) -> np.ndarray:
         """Typical magnitude of each unknown, for finite-difference steps."""
