@@ -45,7 +45,7 @@ class Brick:
     diameter: float
     activity: float = 1.0
     washcoat: str | None = None
-    nodes_per_layer: int = 6
+    nodes_per_layer: int = 8
     cells: int = 40
     sherwood: str = "tronconi_forzatti_1992"
     film: bool = True
