@@ -88,7 +88,7 @@ def section_train(repeats):
     tr = train()
     inlet = exhaust()
     print("1. one steady point: 2 x Cu-CHA SCR (coated 400/6, 40 um, effectiveness factor) + "
-          "dual-layer ASC (400/4, 35+12 um, resolved, 4 nodes/layer)")
+          f"dual-layer ASC (400/4, 35+12 um, resolved, {tr.bricks[2].nodes_per_layer} nodes/layer)")
     print(f"   default resolution: cells per brick {[b.cells for b in tr.bricks]}, "
           f"washcoat {[b.washcoat for b in tr.bricks]}")
     t_cold, sol = median_time(lambda: tr.solve(inlet), repeats)
