@@ -1,6 +1,7 @@
 """The ``aftertreat`` command.
 
 Subcommands:
+    aftertreat run CASE [--set KEY=VALUE ...] [--json] [--report DIR]   evaluate a duty cycle
     aftertreat point CASE [--set KEY=VALUE ...] [--json]   solve the train at the case's exhaust
     aftertreat catalysts [KEY]                              list catalysts, or one's provenance
 
@@ -29,6 +30,15 @@ def _build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="aftertreat", description="Size SCR and ammonia-slip catalysts behind "
                 "ammonia-fuelled engines and turbines.")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    rn = sub.add_parser("run", help="evaluate a duty-cycle case: every mode, cycle emissions, "
+                        "limits")
+    rn.add_argument("case", help="case file (TOML) with [engine], [cycle], [engine_out] ...")
+    rn.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a case value by its dotted path, e.g. "
+                         "'brick.SCR 1.length=700 mm' (repeatable)")
+    rn.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    rn.add_argument("--report", metavar="DIR", help="write tables, plots, sources, the case as "
+                    "run and the safety cautions into DIR")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
     pt.add_argument("case", help="case file (TOML)")
     pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
@@ -45,6 +55,8 @@ def main(argv: list[str] | None = None) -> int:
     from .errors import ConvergenceError, InputError
     args = _build_parser().parse_args(argv)
     try:
+        if args.command == "run":
+            return _run(args)
         if args.command == "point":
             return _point(args)
         if args.command == "catalysts":
@@ -56,6 +68,95 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         return _fail(1, "interrupted")
     return 0
+
+
+def _run(args) -> int:
+    from .cyclecase import load_run_case
+    from .evaluate import run_case
+    from .output import SAFETY_NOTE, to_json
+    case = load_run_case(args.case, args.set)
+    if args.json:
+        result = run_case(case)
+    else:
+        from rich.console import Console
+        con = Console(stderr=True)
+        with con.status("solving...") as status:
+            result = run_case(case, progress=lambda i, n, name: status.update(
+                f"mode {i + 1}/{n}: {name}"))
+    if args.report:
+        from .report import write_report
+        write_report(result, args.report)
+    if args.json:
+        print(to_json(result.to_json()))
+    else:
+        _print_run(result, SAFETY_NOTE, args.report)
+    if not result.converged:
+        bad = [m.name for m in result.modes if not m.solution.converged]
+        return _fail(1, f"solver did not converge in mode(s) {', '.join(bad)}; their numbers "
+                        "are flagged")
+    return 0
+
+
+def _print_run(result, safety: str, report: str | None) -> None:
+    from rich.console import Console
+    from rich.table import Table
+    con = Console()
+    case = result.case
+    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"{case.engine.application}, {case.engine.rated_power_kW:.0f} kW"
+              + (f" at {case.engine.rated_speed_rpm:.0f} rpm" if case.engine.rated_speed_rpm
+                 else "") + f"; cycle {case.cycle.name}; dosing {case.dosing['method']}")
+    from rich import box
+    t = Table(title="Modes (NOx, NH3, N2O in ppmvd at the actual O2)", box=box.SIMPLE_HEAD,
+              pad_edge=False)
+    for c in ("mode", "W", "kW", "T in\nC", "ANR", "NOx\nin", "NOx\nout", "NH3\nout",
+              "N2O\nout", "dp\nkPa", "ok"):
+        t.add_column(c, justify="left" if c == "mode" else "right", no_wrap=True)
+    for m, row in zip(result.modes, result.mode_table().itertuples()):
+        e = m.emissions()
+        t.add_row(m.name, f"{m.weight:.2f}", f"{m.power_kW:.0f}", f"{row.T_in_C:.0f}",
+                  f"{row.ANR:.2f}", f"{m.emissions(m.inlet)['ppmvd']['NOx']:.0f}",
+                  f"{e['ppmvd']['NOx']:.1f}", f"{e['ppmvd']['NH3']:.1f}",
+                  f"{e['ppmvd']['N2O']:.1f}", f"{row.dp_kPa:.2f}",
+                  "yes" if row.converged else "[red]NO[/]")
+    con.print(t)
+    c, eo = result.cycle, result.engine_out_cycle
+    con.print(f"cycle NOx {eo['NOx_g_kWh']:.2f} -> {c['NOx_g_kWh']:.3f} g/kWh, "
+              f"N2O {eo['N2O_g_kWh']:.3f} -> {c['N2O_g_kWh']:.3f} g/kWh "
+              f"({c['N2O_CO2e_g_kWh']:.0f} g CO2e/kWh, GWP {case.gwp_set}), "
+              f"NH3 {c['NH3_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppm_max']:.1f} ppm wet")
+    con.print(f"greenhouse gases {eo['GHG_CO2e_g_kWh']:.0f} -> {c['GHG_CO2e_g_kWh']:.0f} "
+              "g CO2e/kWh (CO2 from carbon fuels and reagent + N2O as CO2e)")
+    if result.limits:
+        L = Table(title="Limits (sources: limits.csv of the report, or --json)",
+                  box=box.SIMPLE_HEAD, pad_edge=False)
+        for col in ("limit", "mode", "value", "limit", "unit", "result"):
+            L.add_column(col, justify="right" if col in ("value", "limit") else "left")
+        for r in result.limits:
+            name = r["name"]
+            if r.get("mode") and name.endswith(f", mode {r['mode']}"):
+                name = name[: -len(f", mode {r['mode']}")]
+            L.add_row(name + (" *" if r.get("confidence") == "from memory" else ""),
+                      r.get("mode") or "cycle", _num(r.get("value")), _num(r.get("limit")),
+                      r["unit"], "[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
+        con.print(L)
+        if any(r.get("confidence") == "from memory" for r in result.limits):
+            con.print("* limit value recalled from memory, not read in the source: check it")
+    verdict = "[green]PASSES[/]" if result.passed else "[red]DOES NOT PASS[/]"
+    con.print(f"Overall: {verdict} every limit of the case (solved in {result.seconds:.1f} s)")
+    seen = set()
+    for w in result.warnings:
+        text = w.split(": ", 1)[1] if w.startswith("mode '") else w
+        if text not in seen:                      # the same note at every mode: show it once
+            seen.add(text)
+            con.print(f"[yellow]note: {text if text != w else w}[/yellow]")
+    if report:
+        con.print(f"report written to {report}/")
+    con.print(f"[dim]{safety}[/dim]")
+
+
+def _num(v) -> str:
+    return "-" if v is None else f"{v:.3g}"
 
 
 def _point(args) -> int:

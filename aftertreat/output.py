@@ -91,6 +91,9 @@ def write_atomic(path: str | Path, text: str | bytes) -> None:
     try:
         with os.fdopen(fd, mode) as fh:
             fh.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)          # mkstemp makes 0600; give normal permissions
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

@@ -1,0 +1,280 @@
+"""Duty-cycle case files: engine, fuel, cycle, engine-out exhaust per mode, dosing, train, limits.
+
+Validated before any computation; mistakes are one :class:`InputError` naming file, key, value and
+what was expected. Per-mode values are lists in cycle order (one number applies to every mode).
+
+Layout (our own key names; see ``cases/*.toml`` for complete examples)::
+
+    title = "..."
+    [engine]
+    application = "auxiliary genset"   # marine propulsion | auxiliary genset |
+                                       # stationary engine | gas turbine
+    rated_power_kW = 2000
+    rated_speed_rpm = 720
+    [fuel]                             # shares of fuel energy, summing to 1
+    NH3 = 0.95
+    H2 = 0.05
+    cracked_H2 = true                  # the H2 is cracked from NH3 on board (adds its N2)
+    [cycle]
+    iso8178 = "D2"                     # or: [[cycle.mode]] name, weight, power_pct
+    [engine_out]
+    method = "combustion"              # or "measured"
+    brake_efficiency = [0.44, 0.45, 0.44, 0.41, 0.35]
+    lambda = [2.0, 2.1, 2.3, 2.6, 3.0]
+    T_C = [390, 370, 355, 340, 320]
+    p_kPa = 104
+    NOx_ppm = [...]; NO2_fraction = 0.05; NH3_ppm = [...]; N2O_ppm = [...]; H2_ppm = 0
+    # (engine-out wet ppm; NO2_fraction is NO2/NOx)
+    # measured: mass_flow_kg_h = [...], O2_pct = [...], H2O_pct = [...], basis = "wet"
+    [dosing]
+    method = "none"                    # "NH3" (gas from the fuel tank) or "urea"
+    ANR = 1.0
+    [[brick]] ...                      # as in point cases (aftertreat.case)
+    [limits]
+    sets = ["imo_tier_iii"]
+    gwp = "AR6"
+    [[limits.custom]]                  # name, quantity, value, unit, o2_ref_pct, source
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .case import _unknown, apply_set, parse_brick, read_toml
+from .errors import InputError, did_you_mean
+from .train import Train
+
+__all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
+
+APPLICATIONS = ("marine propulsion", "auxiliary genset", "stationary engine", "gas turbine")
+_TOP = {"title", "note", "engine", "fuel", "cycle", "engine_out", "dosing", "brick", "limits"}
+_ENGINE = {"application", "rated_power_kW", "rated_speed_rpm", "name"}
+_FUEL = {"NH3", "H2", "diesel", "natural_gas", "cracked_H2"}
+_CYCLE = {"iso8178", "mode"}
+_MINOR = ("NOx_ppm", "NO2_fraction", "NH3_ppm", "N2O_ppm", "H2_ppm")
+_OUT_COMMON = {"method", "T_C", "p_kPa"} | set(_MINOR)
+_OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_g_kg"}
+_OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
+_DOSING = {"method", "ANR", "urea_mass_fraction"}
+_LIMITS = {"sets", "gwp", "custom", "design_margin"}
+
+
+@dataclass
+class EngineSpec:
+    application: str
+    rated_power_kW: float
+    rated_speed_rpm: float | None
+    name: str = ""
+
+
+@dataclass
+class RunCase:
+    """A validated duty-cycle case."""
+    title: str
+    engine: EngineSpec
+    fuel: dict
+    cycle: object                        # aftertreat.cycle.DutyCycle
+    engine_out: dict                     # method + per-mode arrays (SI)
+    dosing: dict                         # method, ANR per mode, urea_mass_fraction
+    train: Train
+    limit_sets: list
+    gwp_set: str
+    file: str
+    data: dict
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def n_modes(self) -> int:
+        return len(self.cycle.modes)
+
+
+def _per_mode(table: dict, key: str, n: int, file: str, pre: str, *, lo=None, hi=None,
+              required=True, default=None) -> np.ndarray | None:
+    """A per-mode value: a number for every mode or a list of n numbers, within [lo, hi]."""
+    if key not in table:
+        if required:
+            raise InputError(f"missing; expected a number or a list of {n} numbers (one per "
+                             "mode)", key=pre + key, file=file)
+        return None if default is None else np.full(n, float(default))
+    v = table[key]
+    vals = v if isinstance(v, list) else [v] * n
+    if len(vals) != n or not all(isinstance(a, (int, float)) and not isinstance(a, bool)
+                                 for a in vals):
+        raise InputError(f"expected a number or a list of {n} numbers (one per mode)",
+                         key=pre + key, value=v, file=file)
+    arr = np.array(vals, dtype=float)
+    if not np.all(np.isfinite(arr)) or (lo is not None and np.any(arr < lo)) or \
+            (hi is not None and np.any(arr > hi)):
+        raise InputError(f"expected values within [{lo}, {hi}]", key=pre + key, value=v, file=file)
+    return arr
+
+
+def _engine(data, file) -> EngineSpec:
+    e = data.get("engine")
+    if not isinstance(e, dict):
+        raise InputError("missing the [engine] table", key="engine", file=file)
+    _unknown(e, _ENGINE, file, "engine.")
+    app = e.get("application")
+    if app not in APPLICATIONS:
+        raise InputError("expected one of " + ", ".join(APPLICATIONS)
+                         + did_you_mean(app, APPLICATIONS), key="engine.application", value=app,
+                         file=file)
+    p = e.get("rated_power_kW")
+    if not isinstance(p, (int, float)) or isinstance(p, bool) or not p > 0:
+        raise InputError("expected a rated power > 0 kW", key="engine.rated_power_kW", value=p,
+                         file=file)
+    n = e.get("rated_speed_rpm")
+    if n is not None and (not isinstance(n, (int, float)) or isinstance(n, bool) or not n > 0):
+        raise InputError("expected a rated speed > 0 rpm", key="engine.rated_speed_rpm",
+                         value=n, file=file)
+    return EngineSpec(app, float(p), None if n is None else float(n), str(e.get("name", "")))
+
+
+def _fuel(data, file) -> dict:
+    f = data.get("fuel", {"NH3": 1.0})
+    if not isinstance(f, dict):
+        raise InputError("expected a [fuel] table of energy shares", key="fuel", file=file)
+    _unknown(f, _FUEL, file, "fuel.")
+    shares = {k: v for k, v in f.items() if k != "cracked_H2"}
+    for k, v in shares.items():
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 <= v <= 1:
+            raise InputError("expected an energy share in [0, 1]", key=f"fuel.{k}", value=v,
+                             file=file)
+    if abs(sum(shares.values()) - 1.0) > 1e-6:
+        raise InputError("expected energy shares that sum to 1", key="fuel",
+                         value=round(sum(shares.values()), 6), file=file)
+    return {"shares": {k: float(v) for k, v in shares.items() if v > 0},
+            "cracked_H2": bool(f.get("cracked_H2", False))}
+
+
+def _cycle(data, file):
+    from . import cycle as cy
+    c = data.get("cycle")
+    if not isinstance(c, dict):
+        raise InputError("missing the [cycle] table (iso8178 = \"D2\" or [[cycle.mode]])",
+                         key="cycle", file=file)
+    _unknown(c, _CYCLE, file, "cycle.")
+    if ("iso8178" in c) == ("mode" in c):
+        raise InputError("give either iso8178 = \"<cycle>\" or a list of [[cycle.mode]]",
+                         key="cycle", file=file)
+    if "iso8178" in c:
+        try:
+            return cy.load_cycle(c["iso8178"])
+        except InputError as exc:
+            raise InputError(exc.expected, key="cycle.iso8178", value=c["iso8178"],
+                             file=file) from None
+    return cy.custom_cycle(c["mode"], file=file)
+
+
+def _engine_out(data, n, file) -> dict:
+    e = data.get("engine_out")
+    if not isinstance(e, dict):
+        raise InputError("missing the [engine_out] table", key="engine_out", file=file)
+    method = e.get("method", "combustion")
+    pre = "engine_out."
+    if method not in ("combustion", "measured"):
+        raise InputError("expected 'combustion' or 'measured'", key=pre + "method", value=method,
+                         file=file)
+    _unknown(e, _OUT_COMBUSTION if method == "combustion" else _OUT_MEASURED, file, pre)
+    out = {"method": method,
+           "T_K": _per_mode(e, "T_C", n, file, pre, lo=0.0, hi=900.0) + 273.15,
+           "p_Pa": _per_mode(e, "p_kPa", n, file, pre, lo=50.0, hi=1000.0, required=False,
+                             default=101.325) * 1e3,
+           "NOx_ppm": _per_mode(e, "NOx_ppm", n, file, pre, lo=0.0, hi=1e5),
+           "NO2_fraction": _per_mode(e, "NO2_fraction", n, file, pre, lo=0.0, hi=1.0,
+                                     required=False, default=0.05),
+           "NH3_ppm": _per_mode(e, "NH3_ppm", n, file, pre, lo=0.0, hi=1e5, required=False,
+                                default=0.0),
+           "N2O_ppm": _per_mode(e, "N2O_ppm", n, file, pre, lo=0.0, hi=1e5, required=False,
+                                default=0.0),
+           "H2_ppm": _per_mode(e, "H2_ppm", n, file, pre, lo=0.0, hi=1e5, required=False,
+                               default=0.0)}
+    if method == "combustion":
+        out["brake_efficiency"] = _per_mode(e, "brake_efficiency", n, file, pre, lo=0.05,
+                                            hi=0.7)
+        out["lambda"] = _per_mode(e, "lambda", n, file, pre, lo=1.0, hi=10.0)
+        out["intake_humidity_g_kg"] = _per_mode(e, "intake_humidity_g_kg", n, file, pre, lo=0.0,
+                                                hi=60.0, required=False, default=10.71)
+    else:
+        out["mass_flow_kg_s"] = _per_mode(e, "mass_flow_kg_h", n, file, pre, lo=1e-6) / 3600.0
+        out["O2_pct"] = _per_mode(e, "O2_pct", n, file, pre, lo=0.0, hi=21.0)
+        out["H2O_pct"] = _per_mode(e, "H2O_pct", n, file, pre, lo=0.0, hi=60.0)
+        basis = e.get("basis", "wet")
+        if basis not in ("wet", "dry"):
+            raise InputError("expected 'wet' or 'dry'", key=pre + "basis", value=basis, file=file)
+        out["basis"] = basis
+    return out
+
+
+def _dosing(data, n, file) -> dict:
+    d = data.get("dosing", {"method": "none"})
+    if not isinstance(d, dict):
+        raise InputError("expected a [dosing] table", key="dosing", file=file)
+    _unknown(d, _DOSING, file, "dosing.")
+    method = d.get("method", "none")
+    if method not in ("none", "NH3", "urea"):
+        raise InputError("expected 'none', 'NH3' or 'urea'" + did_you_mean(method, (
+            "none", "NH3", "urea")), key="dosing.method", value=method, file=file)
+    anr = _per_mode(d, "ANR", n, file, "dosing.", lo=0.0, hi=3.0, required=method != "none",
+                    default=0.0)
+    frac = d.get("urea_mass_fraction", 0.325)
+    if not isinstance(frac, (int, float)) or not 0 < frac < 0.6:
+        raise InputError("expected a urea mass fraction in (0, 0.6), e.g. 0.325",
+                         key="dosing.urea_mass_fraction", value=frac, file=file)
+    return {"method": method, "ANR": anr, "urea_mass_fraction": float(frac)}
+
+
+def _limits(data, file):
+    from . import limits as lm
+    from .emissions import GWP100
+    L = data.get("limits", {})
+    if not isinstance(L, dict):
+        raise InputError("expected a [limits] table", key="limits", file=file)
+    _unknown(L, _LIMITS, file, "limits.")
+    sets = []
+    names = L.get("sets", [])
+    if not isinstance(names, list):
+        raise InputError("expected a list of limit-set keys", key="limits.sets", value=names,
+                         file=file)
+    for k in names:
+        try:
+            sets.append(lm.load_limit_set(k))
+        except InputError as exc:
+            raise InputError(exc.expected, key="limits.sets", value=k, file=file) from None
+    if "custom" in L:
+        sets.append(lm.custom_limits(L["custom"], file=file))
+    gwp = L.get("gwp", "AR6")
+    if gwp not in GWP100:
+        raise InputError("expected one of " + ", ".join(GWP100) + did_you_mean(gwp, GWP100),
+                         key="limits.gwp", value=gwp, file=file)
+    return sets, gwp
+
+
+def parse_run_case(data: dict, file: str) -> RunCase:
+    """Validate a duty-cycle case dictionary (as read from TOML)."""
+    _unknown(data, _TOP, file, "")
+    engine = _engine(data, file)
+    fuel = _fuel(data, file)
+    cycle = _cycle(data, file)
+    n = len(cycle.modes)
+    engine_out = _engine_out(data, n, file)
+    dosing = _dosing(data, n, file)
+    bricks = data.get("brick")
+    if not isinstance(bricks, list) or not bricks:
+        raise InputError("expected at least one [[brick]]", key="brick", file=file)
+    train = Train([parse_brick(b, i, file) for i, b in enumerate(bricks)])
+    sets, gwp = _limits(data, file)
+    return RunCase(title=str(data.get("title", Path(file).stem)), engine=engine, fuel=fuel,
+                   cycle=cycle, engine_out=engine_out, dosing=dosing, train=train,
+                   limit_sets=sets, gwp_set=gwp, file=file, data=data)
+
+
+def load_run_case(path, sets: list[str] | None = None) -> RunCase:
+    """Read, override (``--set``) and validate a duty-cycle case file."""
+    file = str(path)
+    data = read_toml(path)
+    for s in sets or []:
+        data = apply_set(data, s, file)
+    return parse_run_case(data, file)

@@ -1,0 +1,247 @@
+"""Evaluate a duty-cycle case: engine-out exhaust, dosing and the train at every mode, then the
+cycle-weighted emissions and the limits.
+
+This is the orchestrator the CLI, the TUI and scripts call (:func:`run_case`); it returns a
+:class:`CycleResult` with named, unit-carrying values, ``to_json()`` for the ``aftertreat.run/1``
+contract and ``to_pandas()`` tables.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import emissions
+from .errors import InputError
+from .output import stream_dict
+from .species import ELEMENT_MATRIX, INDEX, SPECIES
+from .stream import Stream
+from .train import TrainSolution
+
+__all__ = ["ModeResult", "CycleResult", "run_case", "engine_out_stream"]
+
+
+@dataclass
+class ModeResult:
+    """One mode of the cycle: what the engine makes, what is dosed, what leaves the train."""
+    name: str
+    weight: float
+    power_kW: float
+    cap_exempt: bool
+    engine_out: Stream
+    reagent: np.ndarray                # dosed reagent [mol/s over SPECIES] (gas products)
+    inlet: Stream                      # at the first brick (engine-out + reagent, mixed)
+    solution: TrainSolution
+    air_CO2_mol_s: float = 0.0         # CO2 that came in with the intake air
+
+    @property
+    def outlet(self) -> Stream:
+        return self.solution.outlet
+
+    @property
+    def anr(self) -> float:
+        s = self.inlet
+        nox = s.F[INDEX["NO"]] + s.F[INDEX["NO2"]]
+        return float(s.F[INDEX["NH3"]] / nox) if nox > 0 else float("nan")
+
+    def element_balance_error(self) -> float:
+        """max |atoms(outlet) - atoms(engine-out + reagent)| / max atoms in [-]."""
+        a_in = ELEMENT_MATRIX @ (self.engine_out.F + self.reagent)
+        a_out = ELEMENT_MATRIX @ self.outlet.F
+        return float(np.max(np.abs(a_out - a_in)) / np.max(a_in))
+
+    def emissions(self, stream: Stream | None = None):
+        """Mass flows [g/h] and dry ppm of a stream (default the train outlet)."""
+        s = self.outlet if stream is None else stream
+        F = s.F
+        x_h2o = F[INDEX["H2O"]] / F.sum()
+        dry = s.ppm_dry()
+        co2 = max(F[INDEX["CO2"]] - self.air_CO2_mol_s, 0.0)
+        return {"NOx_g_h": emissions.nox_g_h(F[INDEX["NO"]], F[INDEX["NO2"]]),
+                "N2O_g_h": emissions.mass_flow_g_h(F[INDEX["N2O"]], "N2O"),
+                "NH3_g_h": emissions.mass_flow_g_h(F[INDEX["NH3"]], "NH3"),
+                "CO2_g_h": emissions.mass_flow_g_h(co2, "CO2"),
+                "ppmvd": {sp: dry[sp] for sp in ("NO", "NO2", "NH3", "N2O")} |
+                         {"NOx": dry["NO"] + dry["NO2"]},
+                "O2_dry_pct": dry["O2"] * 1e-4, "H2O_pct": x_h2o * 100.0}
+
+
+@dataclass
+class CycleResult:
+    """Results of a duty-cycle case."""
+    case: object
+    modes: list[ModeResult]
+    cycle: dict
+    engine_out_cycle: dict
+    limits: list[dict]
+    seconds: float
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def passed(self) -> bool:
+        return all(r["pass"] for r in self.limits) and self.converged
+
+    @property
+    def converged(self) -> bool:
+        return all(m.solution.converged for m in self.modes)
+
+    def mode_table(self):
+        """One row per mode, units in the column names."""
+        import pandas as pd
+        rows = []
+        for m in self.modes:
+            e = m.emissions()
+            s = m.solution
+            rows.append({"mode": m.name, "weight": m.weight, "power_kW": m.power_kW,
+                         "exhaust_kg_h": m.inlet.mass_flow * 3600, "T_in_C": m.inlet.T - 273.15,
+                         "T_out_C": m.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
+                         "dp_kPa": s.dp_Pa / 1e3, "ANR": m.anr,
+                         "NOx_conversion": s.nox_conversion(),
+                         "NOx_in_ppm_wet": m.inlet.ppm("NO") + m.inlet.ppm("NO2"),
+                         "NOx_out_ppm_wet": m.outlet.ppm("NO") + m.outlet.ppm("NO2"),
+                         "NH3_in_ppm_wet": m.inlet.ppm("NH3"),
+                         "NH3_out_ppm_wet": m.outlet.ppm("NH3"),
+                         "N2O_out_ppm_wet": m.outlet.ppm("N2O"),
+                         "NOx_out_ppmvd": e["ppmvd"]["NOx"], "NH3_out_ppmvd": e["ppmvd"]["NH3"],
+                         "O2_dry_pct": e["O2_dry_pct"], "H2O_pct": e["H2O_pct"],
+                         "NOx_g_h": e["NOx_g_h"], "N2O_g_h": e["N2O_g_h"],
+                         "NH3_g_h": e["NH3_g_h"], "CO2_g_h": e["CO2_g_h"],
+                         "converged": s.converged,
+                         "element_balance_error": m.element_balance_error()})
+        return pd.DataFrame(rows)
+
+    def limit_table(self):
+        import pandas as pd
+        return pd.DataFrame(self.limits)
+
+    def to_pandas(self):
+        """The per-mode table (:meth:`mode_table`)."""
+        return self.mode_table()
+
+    def to_json(self) -> dict:
+        """The ``aftertreat.run/1`` object (CONVENTIONS.md)."""
+        modes = []
+        for m in self.modes:
+            s = m.solution
+            modes.append({
+                "name": m.name, "weight": m.weight, "power_kW": m.power_kW,
+                "exhaust_kg_h": m.inlet.mass_flow * 3600.0, "T_in_C": m.inlet.T - 273.15,
+                "T_out_C": m.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
+                "dp_kPa": s.dp_Pa / 1e3, "ANR": m.anr, "NOx_conversion": s.nox_conversion(),
+                "converged": s.converged, "element_balance_error": m.element_balance_error(),
+                "engine_out": stream_dict(m.engine_out),
+                "dosed": _reagent_dict(m.reagent),
+                "outlet": stream_dict(m.outlet),
+                "bricks": [{"name": b.brick.name, "role": b.brick.role,
+                            "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
+                            "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
+                            "outlet": stream_dict(b.outlet)} for b in s.bricks],
+                "warnings": s.warnings})
+        return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
+                "cycle_name": self.case.cycle.name, "modes": modes, "cycle": self.cycle,
+                "engine_out_cycle": self.engine_out_cycle, "limits": self.limits,
+                "pass": self.passed, "converged": self.converged,
+                "GHSV_normal_conditions": "0 C, 101.325 kPa", "GWP_set": self.case.gwp_set,
+                "warnings": self.warnings, "solve_s": self.seconds}
+
+
+def _reagent_dict(F: np.ndarray) -> dict:
+    """STREAM object of the dosed reagent (gas products of the reagent; ppm not meaningful)."""
+    return {"mol_s": {sp: float(F[INDEX[sp]]) for sp in SPECIES},
+            "ppm_wet": {sp: 0.0 for sp in SPECIES}, "ppmvd": {sp: 0.0 for sp in SPECIES}}
+
+
+def engine_out_stream(case, i: int):
+    """Engine-out exhaust of mode ``i`` and the CO2 that came with the intake air [mol/s]."""
+    from . import combustion
+    from .cycle import mode_power_fraction
+    e = case.engine_out
+    mode = case.cycle.modes[i]
+    power = case.engine.rated_power_kW * mode_power_fraction(mode)
+    nox = e["NOx_ppm"][i]
+    if e["method"] == "combustion":
+        minor = {"NO": nox * (1 - e["NO2_fraction"][i]), "NO2": nox * e["NO2_fraction"][i],
+                 "NH3": e["NH3_ppm"][i], "N2O": e["N2O_ppm"][i], "H2": e["H2_ppm"][i]}
+        blend = combustion.FuelBlend(energy_shares=case.fuel["shares"],
+                                     cracked_H2=case.fuel["cracked_H2"])
+        try:
+            res = combustion.combustion(power, e["brake_efficiency"][i], blend, e["lambda"][i],
+                                        T_K=e["T_K"][i], p_Pa=e["p_Pa"][i],
+                                        intake_humidity_g_kg=e["intake_humidity_g_kg"][i],
+                                        minor=minor)
+        except InputError as exc:
+            raise InputError(f"mode '{mode.name}': {exc.expected}", key="engine_out",
+                             value=exc.value, file=case.file) from None
+        air_co2 = res.air_dry_mol_s * combustion.dry_air()[INDEX["CO2"]]
+        return power, res.exhaust, air_co2
+    try:
+        stream = combustion.exhaust_from_measurements(
+            T_K=e["T_K"][i], p_Pa=e["p_Pa"][i], mass_flow_kg_s=e["mass_flow_kg_s"][i],
+            H2O_pct=e["H2O_pct"][i], O2_pct=e["O2_pct"][i], NOx_ppm=nox,
+            NO2_fraction=e["NO2_fraction"][i], NH3_ppm=e["NH3_ppm"][i], N2O_ppm=e["N2O_ppm"][i],
+            H2_ppm=e["H2_ppm"][i], basis=e["basis"])
+    except InputError as exc:
+        raise InputError(f"mode '{mode.name}': {exc.expected}", key="engine_out",
+                         value=exc.value, file=case.file) from None
+    return power, stream, 0.0
+
+
+def run_case(case, *, progress=None) -> CycleResult:
+    """Evaluate every mode of ``case`` (a :class:`~aftertreat.cyclecase.RunCase`).
+
+    ``progress(i, n, name)`` is called before each mode. Modes are solved in cycle order, each
+    warm-started from the previous mode's solution.
+    """
+    from . import dosing, limits
+    t0 = time.perf_counter()
+    results: list[ModeResult] = []
+    guess = None
+    n = case.n_modes
+    for i, mode in enumerate(case.cycle.modes):
+        if progress:
+            progress(i, n, mode.name)
+        power, eo, air_co2 = engine_out_stream(case, i)
+        d = case.dosing
+        inlet, reagent = dosing.dose(eo, d["method"], float(d["ANR"][i]),
+                                     urea_mass_fraction=d["urea_mass_fraction"])
+        try:
+            sol = case.train.solve(inlet, guess=guess)
+        except InputError as exc:
+            raise InputError(f"mode '{mode.name}': {exc.expected}", key=exc.key, value=exc.value,
+                             file=exc.file or case.file) from None
+        guess = sol if sol.converged else guess
+        label = mode.name
+        if label.strip().isdigit():          # ISO mode numbers: show the load too
+            label = f"{100.0 * power / case.engine.rated_power_kW:.0f} %"
+        results.append(ModeResult(name=label, weight=mode.weight, power_kW=power,
+                                  cap_exempt=bool(getattr(mode, "cap_exempt", False)),
+                                  engine_out=eo, reagent=reagent, inlet=inlet, solution=sol,
+                                  air_CO2_mol_s=air_co2))
+    tail = [_mode_emissions(m, limits) for m in results]
+    head = [_mode_emissions(m, limits, m.engine_out) for m in results]
+    cyc = limits.cycle_values(tail, gwp_set=case.gwp_set)
+    cyc["NH3_slip_ppm_max"] = max(m.outlet.ppm("NH3") for m in results)
+    cyc["NH3_slip_ppmvd_max"] = max(m.emissions()["ppmvd"]["NH3"] for m in results)
+    eo_cyc = limits.cycle_values(head, gwp_set=case.gwp_set)
+    rows = []
+    for ls in case.limit_sets:
+        rows += limits.evaluate(ls, tail, rated_speed_rpm=case.engine.rated_speed_rpm,
+                                gwp_set=case.gwp_set, rated_power_kW=case.engine.rated_power_kW)
+    warnings = [f"mode '{m.name}': {w}" for m in results for w in m.solution.warnings]
+    for m in results:
+        if not m.solution.converged:
+            warnings.append(f"mode '{m.name}': the solver did not converge; its numbers are "
+                            "flagged")
+    return CycleResult(case=case, modes=results, cycle=cyc, engine_out_cycle=eo_cyc,
+                       limits=rows, seconds=time.perf_counter() - t0, warnings=warnings)
+
+
+def _mode_emissions(m: ModeResult, limits, stream: Stream | None = None):
+    e = m.emissions(stream)
+    return limits.ModeEmissions(name=m.name, weight=m.weight, power_kW=m.power_kW,
+                                cap_exempt=m.cap_exempt, NOx_g_h=e["NOx_g_h"],
+                                N2O_g_h=e["N2O_g_h"], NH3_g_h=e["NH3_g_h"], CO2_g_h=e["CO2_g_h"],
+                                ppmvd=e["ppmvd"], O2_dry_pct=e["O2_dry_pct"],
+                                x_H2O=e["H2O_pct"] / 100.0)
+

@@ -1,0 +1,183 @@
+"""A report folder for a duty-cycle result: tables (CSV), plots (PNG), sources, the case as run
+and the safety cautions. Every file is written atomically (temporary file, then rename)."""
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+from .output import SAFETY_NOTE, to_json, write_atomic
+
+__all__ = ["write_report", "to_toml"]
+
+
+def _toml_value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, str):
+        return '"' + v.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    if isinstance(v, dict):
+        return "{ " + ", ".join(f"{_key(k)} = {_toml_value(x)}" for k, x in v.items()) + " }"
+    raise TypeError(f"cannot write {type(v).__name__} to TOML")
+
+
+def _key(k: str) -> str:
+    return k if k.replace("_", "").replace("-", "").isalnum() else _toml_value(k)
+
+
+def to_toml(data: dict, prefix: str = "") -> str:
+    """Write a case dictionary back as TOML (tables, arrays of tables, plain values)."""
+    out = io.StringIO()
+    plain = {k: v for k, v in data.items()
+             if not isinstance(v, dict) and not (isinstance(v, list) and v and
+                                                 all(isinstance(x, dict) for x in v))}
+    for k, v in plain.items():
+        out.write(f"{_key(k)} = {_toml_value(v)}\n")
+    for k, v in data.items():
+        name = f"{prefix}{_key(k)}"
+        if isinstance(v, dict):
+            out.write(f"\n[{name}]\n")
+            out.write(to_toml(v, prefix=name + "."))
+        elif isinstance(v, list) and v and all(isinstance(x, dict) for x in v):
+            for item in v:
+                out.write(f"\n[[{name}]]\n")
+                out.write(to_toml(item, prefix=name + "."))
+    return out.getvalue()
+
+
+def _csv(df) -> str:
+    return df.to_csv(index=False, float_format="%.6g")
+
+
+def write_report(result, folder: str | Path) -> list[Path]:
+    """Write the report of a :class:`~aftertreat.evaluate.CycleResult` into ``folder``.
+
+    Files: ``summary.json`` (the ``aftertreat.run/1`` object), ``modes.csv``, ``limits.csv``,
+    ``bricks.csv``, ``profiles.csv``, ``provenance.csv``, ``outlet_vs_limits.png``,
+    ``profiles.png``, ``sources.txt``, ``case_as_run.toml``, ``SAFETY.txt``.
+    """
+    import pandas as pd
+    folder = Path(folder)
+    written = []
+
+    def put(name, text):
+        write_atomic(folder / name, text)
+        written.append(folder / name)
+
+    put("summary.json", to_json(result.to_json()) + "\n")
+    put("modes.csv", _csv(result.mode_table()))
+    put("limits.csv", _csv(result.limit_table()))
+    bricks, profiles, prov = [], [], None
+    for m in result.modes:
+        bt = m.solution.brick_table()
+        bt.insert(0, "mode", m.name)
+        bricks.append(bt)
+        pr = m.solution.profiles()
+        pr.insert(0, "mode", m.name)
+        profiles.append(pr)
+        prov = m.solution.provenance()
+    put("bricks.csv", _csv(pd.concat(bricks, ignore_index=True)))
+    put("profiles.csv", _csv(pd.concat(profiles, ignore_index=True)))
+    if prov is not None:
+        put("provenance.csv", _csv(prov))
+    put("outlet_vs_limits.png", _plot_outlet(result))
+    put("profiles.png", _plot_profiles(result))
+    put("sources.txt", _sources(result))
+    put("case_as_run.toml", f"# {result.case.title}\n# as run (after any --set overrides)\n"
+        + to_toml(result.case.data))
+    put("SAFETY.txt", SAFETY_NOTE + "\n")
+    return written
+
+
+def _sources(result) -> str:
+    lines = [f"Sources behind: {result.case.title}", ""]
+    seen = set()
+    for m in result.modes:
+        for s in m.solution.sources():
+            if s not in seen:
+                seen.add(s)
+                lines.append(f"- {s}")
+    cyc = result.case.cycle
+    lines.append(f"- Duty cycle {cyc.name}: {getattr(cyc, 'source', '')} "
+                 f"(confidence: {getattr(cyc, 'confidence', '')})")
+    for ls in result.case.limit_sets:
+        lines.append(f"- Limit set {getattr(ls, 'name', ls)}: {getattr(ls, 'source', '')}")
+    lines += ["", "Every kinetic parameter and its provenance: provenance.csv.",
+              "Each limit row names its source and confidence: limits.csv."]
+    return "\n".join(lines) + "\n"
+
+
+def _figure():
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    return plt
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+    import matplotlib.pyplot as plt
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def _plot_outlet(result) -> bytes:
+    """Per-mode outlet NOx, NH3 and N2O (ppmvd) with the per-mode limits of the case."""
+    plt = _figure()
+    t = result.mode_table()
+    names = list(t["mode"])
+    x = range(len(names))
+    fig, axes = plt.subplots(1, 3, figsize=(13, 4))
+    n2o_dry = [m.emissions()["ppmvd"]["N2O"] for m in result.modes]
+    for ax, col, vals, title in (
+            (axes[0], "NOx", t["NOx_out_ppmvd"], "NOx out [ppmvd, actual O2]"),
+            (axes[1], "NH3", t["NH3_out_ppmvd"], "NH3 slip out [ppmvd, actual O2]"),
+            (axes[2], "N2O", n2o_dry, "N2O out [ppmvd, actual O2]")):
+        ax.bar(x, vals, color="#4a7ab5")
+        ax.set_xticks(list(x), names, rotation=30, ha="right")
+        ax.set_title(title, fontsize=10)
+        for r in result.limits:
+            if r.get("mode") is not None and r["name"].startswith(col) and r["unit"].startswith(
+                    "ppm"):
+                i = names.index(r["mode"]) if r["mode"] in names else None
+                if i is not None:
+                    ax.plot([i - 0.4, i + 0.4], [r["limit"], r["limit"]], color="#c0392b", lw=2)
+                    ax.text(i, r["limit"], f" {r['value']:.1f}@ref", fontsize=7, va="bottom",
+                            ha="center", color="#c0392b")
+    fig.suptitle(f"{result.case.title}\noutlet by mode (red: per-mode limits at their reference O2;"
+                 " label: value at the reference O2)", fontsize=9)
+    fig.tight_layout(rect=(0, 0, 1, 0.9))
+    return _png(fig)
+
+
+def _plot_profiles(result) -> bytes:
+    """Axial profiles along the train for every mode."""
+    plt = _figure()
+    fig, axes = plt.subplots(2, 2, figsize=(12, 7), sharex=True)
+    for m in result.modes:
+        p = m.solution.profiles()
+        z = p["z_mm"]
+        axes[0, 0].plot(z, p["NO_ppm"] + p["NO2_ppm"], label=m.name)
+        axes[0, 1].plot(z, p["NH3_ppm"], label=m.name)
+        axes[1, 0].plot(z, p["N2O_ppm"], label=m.name)
+        axes[1, 1].plot(z, p["T_solid_C"], label=m.name)
+    for ax, t in ((axes[0, 0], "NOx [ppm wet]"), (axes[0, 1], "NH3 [ppm wet]"),
+                  (axes[1, 0], "N2O [ppm wet]"), (axes[1, 1], "catalyst temperature [C]")):
+        ax.set_title(t, fontsize=10)
+        ax.grid(alpha=0.3)
+    axes[0, 1].set_yscale("symlog", linthresh=1.0)
+    z0 = 0.0
+    for b in result.case.train.bricks[:-1]:
+        z0 += b.length * 1e3
+        for ax in axes.ravel():
+            ax.axvline(z0, color="grey", lw=0.8, ls="--")
+    axes[1, 0].set_xlabel("distance along the train [mm]")
+    axes[1, 1].set_xlabel("distance along the train [mm]")
+    axes[0, 0].legend(fontsize=8)
+    fig.suptitle(f"{result.case.title}: axial profiles (dashed: brick boundaries)", fontsize=9)
+    fig.tight_layout(rect=(0, 0, 1, 0.95))
+    return _png(fig)
