@@ -150,7 +150,7 @@ def _plot_outlet(result) -> bytes:
                             ha="center", color="#c0392b")
     fig.suptitle(f"{result.case.title}\noutlet by mode (red: per-mode limits at their reference O2;"
                  " label: value at the reference O2)", fontsize=9)
-    fig.tight_layout(rect=(0, 0, 1, 0.9))
+    fig.tight_layout(rect=(0, 0, 1, 0.93))
     return _png(fig)
 
 
