@@ -168,3 +168,19 @@ def test_bad_case_files_exit_2_with_a_message(tmp_path_factory, capsys, mut):
     assert buf.getvalue() == ""
     assert "Traceback" not in err and err.count("\n") == 1
     assert "bad_case.toml" in err and needle in err, err
+
+
+@pytest.mark.parametrize("case", [GENSET, MARINE])
+def test_demo_cases_run_and_balance(case):
+    """The invented demo cases run to completion (exit 0, converged) and, with the exhaust built
+    from the fuel blend, every mode balances N, H and O from engine-out + dosed to outlet."""
+    code, text = run_json(case)
+    assert code == 0
+    o = json.loads(text)
+    assert o["converged"] is True
+    for m in o["modes"]:
+        assert m["element_balance_error"] < 1e-9
+    # the greenhouse line: N2O as CO2e uses the case's GWP set (IPCC AR6: 273)
+    assert o["cycle"]["N2O_CO2e_g_kWh"] == pytest.approx(273 * o["cycle"]["N2O_g_kWh"],
+                                                          rel=1e-12)
+    assert o["engine_out_cycle"]["NOx_g_kWh"] > o["cycle"]["NOx_g_kWh"]
