@@ -2,6 +2,7 @@
 
 Subcommands:
     aftertreat run CASE [--set KEY=VALUE ...] [--json] [--report DIR]   evaluate a duty cycle
+    aftertreat size CASE [--set KEY=VALUE ...] [--json] [--report DIR]  size SCR and slip catalyst
     aftertreat point CASE [--set KEY=VALUE ...] [--json]   solve the train at the case's exhaust
     aftertreat catalysts [KEY]                              list catalysts, or one's provenance
 
@@ -39,6 +40,14 @@ def _build_parser() -> argparse.ArgumentParser:
     rn.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
     rn.add_argument("--report", metavar="DIR", help="write tables, plots, sources, the case as "
                     "run and the safety cautions into DIR")
+    sz = sub.add_parser("size", help="find the smallest SCR and slip catalyst that meet every "
+                        "limit of a duty-cycle case")
+    sz.add_argument("case", help="case file (TOML) with [engine], [cycle], ... and [sizing]")
+    sz.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a case value by its dotted path (repeatable)")
+    sz.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    sz.add_argument("--report", metavar="DIR", help="write the sizing curves (CSV, PNG) and the "
+                    "report of the sized design into DIR")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
     pt.add_argument("case", help="case file (TOML)")
     pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
@@ -57,6 +66,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "run":
             return _run(args)
+        if args.command == "size":
+            return _size(args)
         if args.command == "point":
             return _point(args)
         if args.command == "catalysts":
@@ -95,6 +106,78 @@ def _run(args) -> int:
         return _fail(1, f"solver did not converge in mode(s) {', '.join(bad)}; their numbers "
                         "are flagged")
     return 0
+
+
+def _size(args) -> int:
+    from .cyclecase import load_run_case
+    from .output import SAFETY_NOTE, to_json
+    from .sizing import size_case
+    case = load_run_case(args.case, args.set)
+    if args.json:
+        res = size_case(case)
+    else:
+        from rich.console import Console
+        with Console(stderr=True).status("sizing...") as status:
+            res = size_case(case, progress=lambda text: status.update(f"sizing: {text}"))
+    if args.report:
+        from .report import write_size_report
+        write_size_report(res, args.report)
+    if args.json:
+        print(to_json(res.to_json()))
+    else:
+        _print_size(res, SAFETY_NOTE, args.report)
+    if not res.run.converged:
+        return _fail(1, "the solver did not converge at the sized design; its numbers are flagged")
+    return 0
+
+
+def _print_size(res, safety: str, report: str | None) -> None:
+    from rich import box
+    from rich.console import Console
+    from rich.table import Table
+    con = Console()
+    case = res.case
+    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"sizing with a design margin of {case.sizing['design_margin'] * 100:.0f} % on "
+              f"every limit, at the aged activities of the case")
+    t = Table(title="Sized train", box=box.SIMPLE_HEAD, pad_edge=False)
+    for c in ("brick", "role", "catalyst", "length mm", "diameter mm", "volume L"):
+        t.add_column(c, justify="left" if c in ("brick", "role", "catalyst") else "right")
+    for b in res.train.bricks:
+        t.add_row(b.name, b.role, "+".join(c.key for c in b.catalysts), f"{b.length * 1e3:.0f}",
+                  f"{b.diameter * 1e3:.0f}", f"{b.volume * 1e3:.0f}")
+    con.print(t)
+    c = res.run.cycle
+    dp = max(m.solution.dp_Pa for m in res.run.modes) / 1e3
+    con.print(f"total {res.train.volume * 1e3:.0f} L; cycle NOx {c['NOx_g_kWh']:.3f} g/kWh, "
+              f"N2O {c['N2O_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppmvd_max']:.2f} "
+              f"ppmvd; back-pressure {dp:.2f} kPa (worst mode)"
+              + (f"; cost {res.cost:.1f}" if res.cost is not None else ""))
+    if res.feasible:
+        con.print("[green]feasible[/green]: binding limits: " + (", ".join(res.binding) or
+                                                                 "none within 1.5 %"))
+    else:
+        con.print("[red]NOT FEASIBLE[/red]")
+        for p in res.problems:
+            con.print(f"  - {p}")
+        if res.suggestions:
+            con.print("what would change that: " + "; ".join(res.suggestions))
+    L = Table(title="Margin on every limit at the sized design", box=box.SIMPLE_HEAD,
+              pad_edge=False)
+    for col in ("limit", "mode", "value", "limit", "unit", "margin %"):
+        L.add_column(col, justify="right" if col in ("value", "limit", "margin %") else "left")
+    for r in res.margins:
+        name = r["name"]
+        if r.get("mode") and name.endswith(f", mode {r['mode']}"):
+            name = name[: -len(f", mode {r['mode']}")]
+        L.add_row(name, r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]), r["unit"],
+                  _num(r["margin_pct"]))
+    con.print(L)
+    con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
+              f"{res.seconds:.1f} s")
+    if report:
+        con.print(f"report written to {report}/")
+    con.print(f"[dim]{safety}[/dim]")
 
 
 def _print_run(result, safety: str, report: str | None) -> None:

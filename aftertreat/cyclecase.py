@@ -34,6 +34,13 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     sets = ["imo_tier_iii"]
     gwp = "AR6"
     [[limits.custom]]                  # name, quantity, value, unit, o2_ref_pct, source
+    [sizing]                           # for 'aftertreat size' (all optional)
+    design_margin = 0.1                # every limit tightened by 10 %
+    dp_max_kPa = 5.0                   # back-pressure budget of the train, worst mode
+    max_length_mm = 3000               # space envelope: total train length ...
+    max_diameter_mm = 1500             # ... and diameter
+    face_velocity_m_s = 4.0            # diameter from the face velocity at the largest flow
+    cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
 """
 from __future__ import annotations
 
@@ -49,7 +56,8 @@ from .train import Train
 __all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
 
 APPLICATIONS = ("marine propulsion", "auxiliary genset", "stationary engine", "gas turbine")
-_TOP = {"title", "note", "engine", "fuel", "cycle", "engine_out", "dosing", "brick", "limits"}
+_TOP = {"title", "note", "engine", "fuel", "cycle", "engine_out", "dosing", "brick", "limits",
+        "sizing"}
 _ENGINE = {"application", "rated_power_kW", "rated_speed_rpm", "name"}
 _FUEL = {"NH3", "H2", "diesel", "natural_gas", "cracked_H2"}
 _CYCLE = {"iso8178", "mode"}
@@ -58,7 +66,9 @@ _OUT_COMMON = {"method", "T_C", "p_kPa"} | set(_MINOR)
 _OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_g_kg"}
 _OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
 _DOSING = {"method", "ANR", "urea_mass_fraction"}
-_LIMITS = {"sets", "gwp", "custom", "design_margin"}
+_LIMITS = {"sets", "gwp", "custom"}
+_SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
+           "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm"}
 
 
 @dataclass
@@ -81,6 +91,7 @@ class RunCase:
     train: Train
     limit_sets: list
     gwp_set: str
+    sizing: dict
     file: str
     data: dict
     notes: list[str] = field(default_factory=list)
@@ -252,6 +263,35 @@ def _limits(data, file):
     return sets, gwp
 
 
+def _sizing(data, file) -> dict:
+    """The [sizing] table: design margin, back-pressure budget, space envelope, diameter rule,
+    costs and search bounds (all optional)."""
+    s = data.get("sizing", {})
+    if not isinstance(s, dict):
+        raise InputError("expected a [sizing] table", key="sizing", file=file)
+    _unknown(s, _SIZING, file, "sizing.")
+    out = {"design_margin": 0.0, "scr_length_max_mm": 4000.0, "asc_length_max_mm": 1000.0}
+    bounds = {"design_margin": (0.0, 0.5), "dp_max_kPa": (0.01, 100.0),
+              "max_length_mm": (10.0, 1e5), "max_diameter_mm": (10.0, 1e5),
+              "face_velocity_m_s": (0.1, 100.0), "scr_length_max_mm": (10.0, 1e5),
+              "asc_length_max_mm": (10.0, 1e5)}
+    for k, (lo, hi) in bounds.items():
+        if k in s:
+            v = s[k]
+            if not isinstance(v, (int, float)) or isinstance(v, bool) or not lo <= v <= hi:
+                raise InputError(f"expected a number within [{lo}, {hi}]", key=f"sizing.{k}",
+                                 value=v, file=file)
+            out[k] = float(v)
+    if "cost_per_L" in s:
+        c = s["cost_per_L"]
+        if not isinstance(c, dict) or not all(isinstance(v, (int, float)) and v >= 0
+                                              for v in c.values()):
+            raise InputError("expected a table of catalyst key = cost per litre >= 0",
+                             key="sizing.cost_per_L", value=c, file=file)
+        out["cost_per_L"] = {k: float(v) for k, v in c.items()}
+    return out
+
+
 def parse_run_case(data: dict, file: str) -> RunCase:
     """Validate a duty-cycle case dictionary (as read from TOML)."""
     _unknown(data, _TOP, file, "")
@@ -268,7 +308,7 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     sets, gwp = _limits(data, file)
     return RunCase(title=str(data.get("title", Path(file).stem)), engine=engine, fuel=fuel,
                    cycle=cycle, engine_out=engine_out, dosing=dosing, train=train,
-                   limit_sets=sets, gwp_set=gwp, file=file, data=data)
+                   limit_sets=sets, gwp_set=gwp, sizing=_sizing(data, file), file=file, data=data)
 
 
 def load_run_case(path, sets: list[str] | None = None) -> RunCase:

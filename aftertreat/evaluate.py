@@ -19,7 +19,7 @@ from .species import ELEMENT_MATRIX, INDEX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
 
-__all__ = ["ModeResult", "CycleResult", "run_case", "engine_out_stream"]
+__all__ = ["ModeResult", "CycleResult", "run_case", "mode_inlets", "engine_out_stream"]
 
 
 @dataclass
@@ -77,6 +77,7 @@ class CycleResult:
     limits: list[dict]
     seconds: float
     warnings: list[str] = field(default_factory=list)
+    train: object = None               # the train solved (the case's, or a what-if/sizing one)
 
     @property
     def passed(self) -> bool:
@@ -187,26 +188,43 @@ def engine_out_stream(case, i: int):
     return power, stream, 0.0
 
 
-def run_case(case, *, progress=None) -> CycleResult:
+def mode_inlets(case) -> list[tuple]:
+    """Per mode: (power_kW, engine-out Stream, intake-air CO2 [mol/s], train inlet Stream,
+    reagent [mol/s]). Independent of the train, so sizing computes it once."""
+    from . import dosing
+    out = []
+    d = case.dosing
+    for i in range(case.n_modes):
+        power, eo, air_co2 = engine_out_stream(case, i)
+        inlet, reagent = dosing.dose(eo, d["method"], float(d["ANR"][i]),
+                                     urea_mass_fraction=d["urea_mass_fraction"])
+        out.append((power, eo, air_co2, inlet, reagent))
+    return out
+
+
+def run_case(case, *, progress=None, train=None, guesses=None, inlets=None) -> CycleResult:
     """Evaluate every mode of ``case`` (a :class:`~aftertreat.cyclecase.RunCase`).
 
     ``progress(i, n, name)`` is called before each mode. Modes are solved in cycle order, each
-    warm-started from the previous mode's solution.
+    warm-started from the previous mode's solution, or from ``guesses[i]`` (a previous result's
+    :class:`~aftertreat.train.TrainSolution` of the same mode on the same grid) when given.
+    ``train`` replaces the case's train (what-ifs, sizing); ``inlets`` reuses
+    :func:`mode_inlets`.
     """
-    from . import dosing, limits
+    from . import limits
     t0 = time.perf_counter()
+    train = case.train if train is None else train
+    inlets = mode_inlets(case) if inlets is None else inlets
     results: list[ModeResult] = []
     guess = None
     n = case.n_modes
     for i, mode in enumerate(case.cycle.modes):
         if progress:
             progress(i, n, mode.name)
-        power, eo, air_co2 = engine_out_stream(case, i)
-        d = case.dosing
-        inlet, reagent = dosing.dose(eo, d["method"], float(d["ANR"][i]),
-                                     urea_mass_fraction=d["urea_mass_fraction"])
+        power, eo, air_co2, inlet, reagent = inlets[i]
+        g = guesses[i] if guesses is not None else guess
         try:
-            sol = case.train.solve(inlet, guess=guess)
+            sol = train.solve(inlet, guess=g)
         except InputError as exc:
             raise InputError(f"mode '{mode.name}': {exc.expected}", key=exc.key, value=exc.value,
                              file=exc.file or case.file) from None
@@ -234,7 +252,8 @@ def run_case(case, *, progress=None) -> CycleResult:
             warnings.append(f"mode '{m.name}': the solver did not converge; its numbers are "
                             "flagged")
     return CycleResult(case=case, modes=results, cycle=cyc, engine_out_cycle=eo_cyc,
-                       limits=rows, seconds=time.perf_counter() - t0, warnings=warnings)
+                       limits=rows, seconds=time.perf_counter() - t0, warnings=warnings,
+                       train=train)
 
 
 def _mode_emissions(m: ModeResult, limits, stream: Stream | None = None):

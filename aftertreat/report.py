@@ -7,7 +7,7 @@ from pathlib import Path
 
 from .output import SAFETY_NOTE, to_json, write_atomic
 
-__all__ = ["write_report", "to_toml"]
+__all__ = ["write_report", "write_size_report", "to_toml"]
 
 
 def _toml_value(v) -> str:
@@ -171,7 +171,7 @@ def _plot_profiles(result) -> bytes:
         ax.grid(alpha=0.3)
     axes[0, 1].set_yscale("symlog", linthresh=1.0)
     z0 = 0.0
-    for b in result.case.train.bricks[:-1]:
+    for b in (result.train or result.case.train).bricks[:-1]:
         z0 += b.length * 1e3
         for ax in axes.ravel():
             ax.axvline(z0, color="grey", lw=0.8, ls="--")
@@ -180,4 +180,45 @@ def _plot_profiles(result) -> bytes:
     axes[0, 0].legend(fontsize=8)
     fig.suptitle(f"{result.case.title}: axial profiles (dashed: brick boundaries)", fontsize=9)
     fig.tight_layout(rect=(0, 0, 1, 0.95))
+    return _png(fig)
+
+
+def write_size_report(res, folder: str | Path) -> list[Path]:
+    """Sizing report: ``size.json`` (``aftertreat.size/1``), ``sizing_curves.csv``,
+    ``sizing_curves.png``, ``margins.csv``, and the full run report of the sized design."""
+    import pandas as pd
+    folder = Path(folder)
+    written = write_report(res.run, folder)
+    for name, text in (("size.json", to_json(res.to_json()) + "\n"),
+                       ("sizing_curves.csv", _csv(res.curve_table())),
+                       ("margins.csv", _csv(pd.DataFrame(res.margins))),
+                       ("sizing_curves.png", _plot_curves(res))):
+        write_atomic(folder / name, text)
+        written.append(folder / name)
+    return written
+
+
+def _plot_curves(res) -> bytes:
+    """Cycle NOx, max NH3 slip, N2O and back-pressure against the SCR volume (slip catalyst at
+    its sized length) and against the slip-catalyst volume (SCR at its sized length)."""
+    plt = _figure()
+    t = res.curve_table()
+    fig, axes = plt.subplots(2, 4, figsize=(15, 7))
+    cols = (("NOx_g_kWh", "cycle NOx [g/kWh]"), ("NH3_slip_ppmvd_max", "max NH3 slip [ppmvd]"),
+            ("N2O_g_kWh", "cycle N2O [g/kWh]"), ("dp_kPa_max", "back-pressure, worst mode [kPa]"))
+    scr_v = sum(b.volume for b in res.train.bricks if b.role == "SCR") * 1e3
+    asc_v = sum(b.volume for b in res.train.bricks if b.role != "SCR") * 1e3
+    for row, (sweep, xcol, xv, label) in enumerate((
+            ("SCR", "SCR_volume_L", scr_v, "SCR volume [L] (slip catalyst at its size)"),
+            ("ASC", "ASC_volume_L", asc_v, "slip-catalyst volume [L] (SCR at its size)"))):
+        d = t[t["sweep"] == sweep].sort_values(xcol)
+        for ax, (col, title) in zip(axes[row], cols):
+            ax.plot(d[xcol], d[col], "o-", color="#4a7ab5", ms=4)
+            ax.axvline(xv, color="#c0392b", lw=1.2, ls="--")
+            ax.set_title(title, fontsize=9)
+            ax.set_xlabel(label, fontsize=8)
+            ax.grid(alpha=0.3)
+    fig.suptitle(f"{res.case.title}\nsizing curves around the sized design (dashed)",
+                 fontsize=9)
+    fig.tight_layout(rect=(0, 0, 1, 0.93))
     return _png(fig)

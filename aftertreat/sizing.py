@@ -1,0 +1,355 @@
+"""Size the catalyst train: the smallest SCR and slip-catalyst volumes that meet every limit.
+
+The SCR section (all SCR bricks, scaled together in their case proportions) and the slip-catalyst
+section (ASC or oxidation bricks after the SCR) are sized separately, at the case's aged activity,
+with a design margin on every limit:
+
+1. SCR length: the smallest one for which every NOx limit holds at every mode and over the cycle
+   (and the NH3 limits too when the train has no slip catalyst). The worst ratio value/limit falls
+   as the SCR grows, so the root of ``log(ratio)`` in ``log(length)`` is bracketed and found by
+   the Illinois variant of regula falsi (Dowell & Jarratt, BIT 11 (1971) 168) to 0.5 %.
+2. Slip-catalyst length: likewise for the NH3 limits, with the SCR at its size.
+3. Step 1 is repeated if the slip catalyst moved the NOx (its SCR layer reduces NOx, its oxidation
+   layer makes NO). Every other limit (N2O, greenhouse gases), the back-pressure budget and the
+   space envelope are checked on the result; what fails is reported, not hidden.
+
+Each design is evaluated with :func:`aftertreat.evaluate.run_case` on the same grid, warm-started
+from the nearest design already solved. The diameter is the case's, or set by a face-velocity rule
+at the largest exhaust flow of the cycle.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import InputError
+from .evaluate import mode_inlets, run_case
+from .train import Train
+
+__all__ = ["SizingResult", "size_case", "SIZING_TOL"]
+
+#: Relative tolerance on each sized length.
+SIZING_TOL = 0.005
+
+
+@dataclass
+class SizingResult:
+    """The sized train, the run at that size, the limits that bind and the sizing curves."""
+    case: object
+    feasible: bool
+    train: Train
+    run: object                        # CycleResult at the sized design
+    binding: list[str]
+    curves: list[dict]                 # one row per design evaluated
+    problems: list[str] = field(default_factory=list)
+    suggestions: list[str] = field(default_factory=list)
+    margins: list[dict] = field(default_factory=list)
+    evaluations: int = 0
+    train_solves: int = 0
+    seconds: float = 0.0
+    cost: float | None = None
+
+    def brick_rows(self) -> list[dict]:
+        return [{"name": b.name, "role": b.role, "volume_L": b.volume * 1e3,
+                 "length_mm": b.length * 1e3, "diameter_mm": b.diameter * 1e3}
+                for b in self.train.bricks]
+
+    def to_json(self) -> dict:
+        """The ``aftertreat.size/1`` object."""
+        return {"schema": "aftertreat.size/1", "case": self.case.title,
+                "bricks": self.brick_rows(), "total_volume_L": self.train.volume * 1e3,
+                "binding": self.binding, "feasible": self.feasible, "problems": self.problems,
+                "suggestions": self.suggestions, "margins": self.margins,
+                "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
+                "curves": self.curves, "evaluations": self.evaluations,
+                "train_solves": self.train_solves, "solve_s": self.seconds,
+                "run": self.run.to_json()}
+
+    def curve_table(self):
+        import pandas as pd
+        return pd.DataFrame(self.curves).sort_values(["SCR_length_mm", "ASC_length_mm"])
+
+
+def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
+    """Worst value/(limit x (1 - margin)) over the limit rows whose quantity starts with one of
+    ``quantities``; and the rows in that group."""
+    rows = [r for r in res.limits if r["quantity"].startswith(quantities)
+            and r.get("limit") is not None]
+    if not rows:
+        return 0.0, []
+    ratios = [r["value"] / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
+              (0.0 if r["value"] <= 0 else math.inf) for r in rows]
+    return max(ratios), rows
+
+
+class _Designs:
+    """Evaluate designs (SCR length, slip-catalyst length) with caching and warm starts."""
+
+    def __init__(self, case, diameter):
+        self.case, self.D = case, diameter
+        self.inlets = mode_inlets(case)
+        b = case.train.bricks
+        self.scr = [i for i, x in enumerate(b) if x.role == "SCR"]
+        if not self.scr:
+            raise InputError("the train has no SCR brick to size", key="brick", file=case.file)
+        last = max(self.scr)
+        self.asc = [i for i, x in enumerate(b) if i > last and x.role in ("ASC", "oxidation")]
+        self.L_scr0 = sum(b[i].length for i in self.scr)
+        self.L_asc0 = sum(b[i].length for i in self.asc)
+        self.cache: dict[tuple[float, float], object] = {}
+        self.solves = 0
+
+    def train(self, L_scr: float, L_asc: float) -> Train:
+        b = self.case.train.bricks
+        new = []
+        for i, x in enumerate(b):
+            L = x.length
+            if i in self.scr:
+                L = L_scr * x.length / self.L_scr0
+            elif i in self.asc and self.L_asc0 > 0:
+                L = L_asc * x.length / self.L_asc0
+            new.append(dataclasses.replace(x, length=L, diameter=self.D))
+        return Train(new)
+
+    def __call__(self, L_scr: float, L_asc: float):
+        key = (round(L_scr, 9), round(L_asc, 9))
+        if key in self.cache:
+            return self.cache[key]
+        guesses = None
+        if self.cache:                  # warm start from the nearest design solved
+            near = min(self.cache, key=lambda k: abs(math.log(k[0] / L_scr))
+                       + abs(math.log(max(k[1], 1e-9) / max(L_asc, 1e-9))))
+            prev = self.cache[near]
+            if prev.converged:
+                guesses = [m.solution for m in prev.modes]
+        res = run_case(self.case, train=self.train(L_scr, L_asc), guesses=guesses,
+                       inlets=self.inlets)
+        self.solves += len(res.modes)
+        self.cache[key] = res
+        return res
+
+
+def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step: float = 2.0):
+    """Smallest x in [lo, hi] with f(x) <= 1 for a decreasing f: (x, feasible, f at the answer).
+
+    Brackets from x0 by factors of ``step``, then Illinois regula falsi on log f versus log x until the
+    bracket is narrower than ``tol`` (relative); the feasible end is returned.
+    """
+    x = min(max(x0, lo), hi)
+    fx = f(x)
+    if fx <= 1.0:
+        good, f_good, bad, f_bad = x, fx, None, None
+        while x > lo * (1 + 1e-12):
+            x = max(x / step, lo)
+            fx = f(x)
+            if fx > 1.0:
+                bad, f_bad = x, fx
+                break
+            good, f_good = x, fx
+        if bad is None:
+            return good, True, f_good
+    else:
+        good, f_good, bad, f_bad = None, None, x, fx
+        while x < hi * (1 - 1e-12):
+            x = min(x * step, hi)
+            fx = f(x)
+            if fx <= 1.0:
+                good, f_good = x, fx
+                break
+            bad, f_bad = x, fx
+        if good is None:
+            return bad, False, f_bad
+    side = 0
+    while good / bad - 1.0 > tol:
+        gb, gg = math.log(max(f_bad, 1e-300)), math.log(max(f_good, 1e-300))
+        t = gb / (gb - gg) if gb != gg else 0.5
+        t = min(max(t, 0.05), 0.95)
+        x = math.exp(math.log(bad) + t * (math.log(good) - math.log(bad)))
+        fx = f(x)
+        if fx <= 1.0:
+            good, f_good = x, fx
+            if side == 1:                       # Illinois: halve the stale end's weight
+                f_bad = 1.0 + (f_bad - 1.0) / 2.0
+            side = 1
+        else:
+            bad, f_bad = x, fx
+            if side == -1:
+                f_good = 1.0 + (f_good - 1.0) / 2.0
+            side = -1
+    return good, True, f_good
+
+
+def _face_velocity_diameter(case, inlets, v: float) -> float:
+    q = max(inl[3].volume_flow() for inl in inlets)     # actual m3/s at the brick inlet
+    return math.sqrt(4.0 * q / (math.pi * v))
+
+
+def size_case(case, *, progress=None) -> SizingResult:
+    """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``)."""
+    t0 = time.perf_counter()
+    sz = case.sizing
+    m = sz["design_margin"]
+    D = case.train.bricks[0].diameter
+    designs = None
+    if sz.get("face_velocity_m_s"):
+        inl = mode_inlets(case)
+        D = _face_velocity_diameter(case, inl, sz["face_velocity_m_s"])
+    if sz.get("max_diameter_mm") and D > sz["max_diameter_mm"] / 1e3:
+        D = sz["max_diameter_mm"] / 1e3
+    designs = _Designs(case, D)
+    has_asc = bool(designs.asc)
+    fixed = sum(b.length for i, b in enumerate(case.train.bricks)
+                if i not in designs.scr and i not in designs.asc)
+    max_total = sz.get("max_length_mm")
+    scr_hi = sz["scr_length_max_mm"] / 1e3
+    asc_hi = sz["asc_length_max_mm"] / 1e3
+    if max_total:
+        scr_hi = min(scr_hi, max_total / 1e3 - fixed - (designs.L_asc0 if has_asc else 0.0))
+    scr_lo, asc_lo = 0.005, 0.005
+    if scr_hi <= scr_lo:
+        raise InputError("the space envelope leaves no room for the SCR", key="sizing.max_length_mm",
+                         value=max_total, file=case.file)
+    # the SCR carries NOx, and N2O and greenhouse limits too: a longer SCR uses more NH3, so less
+    # of it reaches the slip catalyst to be oxidised (partly to N2O)
+    nox = ("NOx", "N2O", "GHG") if has_asc else ("NOx", "NH3", "N2O", "GHG")
+    problems, suggestions = [], []
+    L_scr, L_asc = designs.L_scr0, designs.L_asc0
+
+    def f_scr(L):
+        if progress:
+            progress(f"SCR {L * 1e3:.0f} mm")
+        return _ratio_rows(designs(L, L_asc), nox, m)[0]
+
+    def f_asc(L):
+        if progress:
+            progress(f"slip catalyst {L * 1e3:.0f} mm")
+        return _ratio_rows(designs(L_scr, L), ("NH3",), m)[0]
+
+    feasible = True
+    for k in range(3):
+        step = 2.0 if k == 0 else 1.05        # later passes start next to the previous answer
+        L_scr, ok, fval = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step)
+        if not ok:
+            feasible = False
+            worst = _failing(designs(L_scr, L_asc), nox, m)
+            problems.append(f"with an SCR up to {scr_hi * 1e3:.0f} mm long these limits still "
+                            "fail (best values reachable): " + "; ".join(worst))
+            suggestions += _suggest(designs(L_scr, L_asc), nox, m, case)
+            break
+        if not has_asc:
+            break
+        L_prev = L_asc
+        L_asc, ok_a, fa = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step)
+        if not ok_a:
+            feasible = False
+            worst = _failing(designs(L_scr, L_asc), ("NH3",), m)
+            problems.append(f"with a slip catalyst up to {asc_hi * 1e3:.0f} mm long these limits "
+                            "still fail (best values reachable): " + "; ".join(worst))
+            suggestions += _suggest(designs(L_scr, L_asc), ("NH3",), m, case)
+            break
+        if f_scr(L_scr) <= 1.0 and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
+            break
+    res = designs(L_scr, L_asc)
+    train = designs.train(L_scr, L_asc)
+    # every other limit, the back-pressure budget and the envelope, on the result
+    binding, margins = [], []
+    for r in res.limits:
+        if r.get("limit") is None:
+            continue
+        lim_m = r["limit"] * (1.0 - m)
+        ratio = r["value"] / lim_m if lim_m > 0 else math.inf
+        margins.append({"name": r["name"], "mode": r.get("mode"), "value": r["value"],
+                        "limit": r["limit"], "unit": r["unit"],
+                        "margin_pct": 100.0 * (1.0 - r["value"] / r["limit"])
+                        if r["limit"] > 0 else None, "pass_with_design_margin": ratio <= 1.0})
+        if ratio > 1.0:
+            feasible = False
+            problems.append(f"{r['name']}" + (f" at mode {r['mode']}" if r.get("mode") else "")
+                            + f": {r['value']:.3g} > {lim_m:.3g} {r['unit']} (limit with margin)")
+            suggestions += _suggest(res, (r["quantity"],), m, case)
+        elif ratio > 1.0 - 3 * SIZING_TOL - 0.01:
+            binding.append(r["name"])
+    dp = max(mr.solution.dp_Pa for mr in res.modes) / 1e3
+    if sz.get("dp_max_kPa") and dp > sz["dp_max_kPa"]:
+        feasible = False
+        problems.append(f"back-pressure {dp:.2f} kPa exceeds the budget {sz['dp_max_kPa']:.2f} kPa")
+        suggestions.append("a larger diameter or a lower cell density")
+    total = sum(b.length for b in train.bricks)
+    if max_total and total > max_total / 1e3 * (1 + 1e-9):
+        feasible = False
+        problems.append(f"train length {total * 1e3:.0f} mm exceeds the envelope "
+                        f"{max_total:.0f} mm")
+    # sizing curves: the SCR swept with the slip catalyst at its size, and the slip catalyst
+    # swept with the SCR at its size (warm-started, so each point costs a few Newton steps)
+    for f_ in (0.6, 0.8, 1.25, 1.6):
+        if progress:
+            progress(f"sizing curves: SCR x {f_}")
+        designs(L_scr * f_, L_asc)
+        if has_asc:
+            designs(L_scr, L_asc * f_)
+    curves = _curves(designs, m, L_scr, L_asc)
+    cost = None
+    if sz.get("cost_per_L"):
+        cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(b.catalysts[0].key, 0.0)
+                   for b in train.bricks)
+    return SizingResult(case=case, feasible=feasible and res.converged, train=train, run=res,
+                        binding=sorted(set(binding)), curves=curves, problems=problems,
+                        suggestions=sorted(set(suggestions)), margins=margins,
+                        evaluations=len(designs.cache), train_solves=designs.solves,
+                        seconds=time.perf_counter() - t0, cost=cost)
+
+
+def _failing(res, quantities, margin) -> list[str]:
+    out = []
+    for r in res.limits:
+        if r["quantity"].startswith(quantities) and r.get("limit") is not None and \
+                r["value"] > r["limit"] * (1.0 - margin):
+            where = f" at mode {r['mode']}" if r.get("mode") else ""
+            out.append(f"{r['name']}{where}: {r['value']:.3g} {r['unit']} against "
+                       f"{r['limit'] * (1.0 - margin):.3g} with the design margin")
+    return out
+
+
+def _suggest(res, quantities, margin, case) -> list[str]:
+    """What would change an infeasible answer, by the kind of limit that fails."""
+    kinds = {r["quantity"].split("_")[0] for r in res.limits
+             if r["quantity"].startswith(quantities) and r.get("limit") is not None
+             and r["value"] > r["limit"] * (1.0 - margin)}
+    out = []
+    if "NOx" in kinds:
+        out += ["a more active catalyst or a higher cell density",
+                "a larger space envelope (length or diameter)"]
+        if case.dosing["method"] == "none":
+            out.append("NH3 dosing from the fuel tank where the engine's own NH3 falls short "
+                       "of the NOx")
+    if "NH3" in kinds:
+        out += ["a lower ANR, so less NH3 reaches the slip catalyst",
+                "a longer slip catalyst or a more active oxidation layer"]
+    if kinds & {"N2O", "GHG"}:
+        out += ["less NH3 reaching the slip catalyst (lower ANR or lower engine-out NH3)",
+                "a slip catalyst more selective to N2, or lower engine-out N2O"]
+    return out
+
+
+def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> list[dict]:
+    """Rows for every design evaluated; ``sweep`` says which length varies around the answer."""
+    rows = []
+    for (Ls, La), res in designs.cache.items():
+        sweep = ("SCR" if abs(La - L_asc) <= 1e-6 * max(L_asc, 1e-9) else
+                 "ASC" if abs(Ls - L_scr) <= 1e-6 * L_scr else "search")
+        c = res.cycle
+        t = designs.train(Ls, La)
+        rows.append({"sweep": sweep, "SCR_length_mm": Ls * 1e3, "ASC_length_mm": La * 1e3,
+                     "SCR_volume_L": sum(b.volume for b in t.bricks if b.role == "SCR") * 1e3,
+                     "ASC_volume_L": sum(b.volume for b in t.bricks if b.role != "SCR") * 1e3,
+                     "total_volume_L": t.volume * 1e3, "NOx_g_kWh": c["NOx_g_kWh"],
+                     "NH3_slip_ppmvd_max": c["NH3_slip_ppmvd_max"], "N2O_g_kWh": c["N2O_g_kWh"],
+                     "dp_kPa_max": max(m.solution.dp_Pa for m in res.modes) / 1e3,
+                     "NOx_ratio": _ratio_rows(res, ("NOx",), margin)[0],
+                     "NH3_ratio": _ratio_rows(res, ("NH3",), margin)[0],
+                     "converged": res.converged})
+    return sorted(rows, key=lambda r: (r["SCR_length_mm"], r["ASC_length_mm"]))

@@ -1,0 +1,43 @@
+"""Speed of `aftertreat size` on the 5-mode demo genset (SCR + dual-layer slip catalyst).
+
+Prints figures only (never asserts). Target of the sizing issue: under 2 s on one core.
+Run: python benchmarks/sizing.py
+"""
+import os
+import platform
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+import numpy as np  # noqa: E402
+
+from aftertreat.cyclecase import load_run_case  # noqa: E402
+from aftertreat.evaluate import run_case  # noqa: E402
+from aftertreat.sizing import size_case  # noqa: E402
+
+
+def main():
+    print(f"platform {platform.platform()}, python {platform.python_version()}, "
+          f"numpy {np.__version__}, cores {os.cpu_count()}")
+    case = load_run_case(ROOT / "cases" / "genset_d2.toml")
+    run_case(case)                                     # one-time set-up (Cantera tables, pint)
+    t = time.perf_counter()
+    r = run_case(case)
+    t_run = time.perf_counter() - t
+    print(f"one cycle evaluation ({len(r.modes)} modes, {len(case.train.bricks)} bricks, cold "
+          f"starts): {t_run:.2f} s")
+    t = time.perf_counter()
+    res = size_case(case)
+    dt = time.perf_counter() - t
+    print(f"sizing: {dt:.1f} s, {res.evaluations} designs, {res.train_solves} train solves "
+          f"({dt / max(res.train_solves, 1) * 1e3:.0f} ms per train solve), feasible "
+          f"{res.feasible}, total volume {res.train.volume * 1e3:.0f} L")
+    print(f"target: < 2 s -> ratio {dt / 2.0:.1f}x too slow" if dt > 2.0 else
+          "target: < 2 s met")
+
+
+if __name__ == "__main__":
+    main()
