@@ -34,6 +34,9 @@ __all__ = ["SizingResult", "size_case", "SIZING_TOL"]
 
 #: Relative tolerance on each sized length.
 SIZING_TOL = 0.005
+#: (cells, washcoat nodes per layer) of the coarse search grid; the answer is polished on the
+#: case's own grid.
+COARSE_GRID = (10, 4)
 
 
 @dataclass
@@ -89,9 +92,9 @@ def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
 class _Designs:
     """Evaluate designs (SCR length, slip-catalyst length) with caching and warm starts."""
 
-    def __init__(self, case, diameter):
-        self.case, self.D = case, diameter
-        self.inlets = mode_inlets(case)
+    def __init__(self, case, diameter, grid=None, inlets=None):
+        self.case, self.D, self.grid = case, diameter, grid
+        self.inlets = mode_inlets(case) if inlets is None else inlets
         b = case.train.bricks
         self.scr = [i for i, x in enumerate(b) if x.role == "SCR"]
         if not self.scr:
@@ -112,7 +115,11 @@ class _Designs:
                 L = L_scr * x.length / self.L_scr0
             elif i in self.asc and self.L_asc0 > 0:
                 L = L_asc * x.length / self.L_asc0
-            new.append(dataclasses.replace(x, length=L, diameter=self.D))
+            kw = {}
+            if self.grid is not None:        # coarse search grid
+                kw = {"cells": min(x.cells, self.grid[0]),
+                      "nodes_per_layer": min(x.nodes_per_layer, self.grid[1])}
+            new.append(dataclasses.replace(x, length=L, diameter=self.D, **kw))
         return Train(new)
 
     def __call__(self, L_scr: float, L_asc: float):
@@ -217,42 +224,52 @@ def size_case(case, *, progress=None) -> SizingResult:
     # of it reaches the slip catalyst to be oxidised (partly to N2O)
     nox = ("NOx", "N2O", "GHG") if has_asc else ("NOx", "NH3", "N2O", "GHG")
     problems, suggestions = [], []
-    L_scr, L_asc = designs.L_scr0, designs.L_asc0
-
-    def f_scr(L):
-        if progress:
-            progress(f"SCR {L * 1e3:.0f} mm")
-        return _ratio_rows(designs(L, L_asc), nox, m)[0]
-
-    def f_asc(L):
-        if progress:
-            progress(f"slip catalyst {L * 1e3:.0f} mm")
-        return _ratio_rows(designs(L_scr, L), ("NH3",), m)[0]
-
     feasible = True
-    for k in range(3):
-        step = 2.0 if k == 0 else 1.05        # later passes start next to the previous answer
-        L_scr, ok, fval = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step)
-        if not ok:
-            feasible = False
-            worst = _failing(designs(L_scr, L_asc), nox, m)
-            problems.append(f"with an SCR up to {scr_hi * 1e3:.0f} mm long these limits still "
-                            "fail (best values reachable): " + "; ".join(worst))
-            suggestions += _suggest(designs(L_scr, L_asc), nox, m, case)
-            break
-        if not has_asc:
-            break
-        L_prev = L_asc
-        L_asc, ok_a, fa = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step)
-        if not ok_a:
-            feasible = False
-            worst = _failing(designs(L_scr, L_asc), ("NH3",), m)
-            problems.append(f"with a slip catalyst up to {asc_hi * 1e3:.0f} mm long these limits "
-                            "still fail (best values reachable): " + "; ".join(worst))
-            suggestions += _suggest(designs(L_scr, L_asc), ("NH3",), m, case)
-            break
-        if f_scr(L_scr) <= 1.0 and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
-            break
+
+    def search(designs, L_scr, L_asc, first_step, passes):
+        """Alternate SCR and slip-catalyst sizing on ``designs``; returns lengths and status."""
+        nonlocal feasible
+
+        def f_scr(L):
+            if progress:
+                progress(f"SCR {L * 1e3:.0f} mm")
+            return _ratio_rows(designs(L, L_asc), nox, m)[0]
+
+        def f_asc(L):
+            if progress:
+                progress(f"slip catalyst {L * 1e3:.0f} mm")
+            return _ratio_rows(designs(L_scr, L), ("NH3",), m)[0]
+
+        for k in range(passes):
+            step = first_step if k == 0 else 1.05   # later passes start next to the answer
+            L_scr, ok, _ = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step)
+            if not ok:
+                feasible = False
+                problems.append(f"with an SCR up to {scr_hi * 1e3:.0f} mm long these limits "
+                                "still fail (best values reachable): "
+                                + "; ".join(_failing(designs(L_scr, L_asc), nox, m)))
+                suggestions.extend(_suggest(designs(L_scr, L_asc), nox, m, case))
+                break
+            if not has_asc:
+                break
+            L_prev = L_asc
+            L_asc, ok_a, _ = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step)
+            if not ok_a:
+                feasible = False
+                problems.append(f"with a slip catalyst up to {asc_hi * 1e3:.0f} mm long these "
+                                "limits still fail (best values reachable): "
+                                + "; ".join(_failing(designs(L_scr, L_asc), ("NH3",), m)))
+                suggestions.extend(_suggest(designs(L_scr, L_asc), ("NH3",), m, case))
+                break
+            if f_scr(L_scr) <= 1.0 and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
+                break
+        return L_scr, L_asc
+
+    # search on a coarse grid (about 1-2 % from the case's grid), then polish on the case's grid
+    coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets)
+    L_scr, L_asc = search(coarse, designs.L_scr0, designs.L_asc0, 2.0, 3)
+    if feasible:
+        L_scr, L_asc = search(designs, L_scr, L_asc, 1.02, 3)
     res = designs(L_scr, L_asc)
     train = designs.train(L_scr, L_asc)
     # every other limit, the back-pressure budget and the envelope, on the result
@@ -283,15 +300,15 @@ def size_case(case, *, progress=None) -> SizingResult:
         feasible = False
         problems.append(f"train length {total * 1e3:.0f} mm exceeds the envelope "
                         f"{max_total:.0f} mm")
-    # sizing curves: the SCR swept with the slip catalyst at its size, and the slip catalyst
-    # swept with the SCR at its size (warm-started, so each point costs a few Newton steps)
-    for f_ in (0.6, 0.8, 1.25, 1.6):
+    # sizing curves, on the search grid: the SCR swept with the slip catalyst at its size, and
+    # the slip catalyst swept with the SCR at its size
+    for f_ in (0.6, 0.8, 1.0, 1.25, 1.6):
         if progress:
-            progress(f"sizing curves: SCR x {f_}")
-        designs(L_scr * f_, L_asc)
+            progress(f"sizing curves: x {f_}")
+        coarse(L_scr * f_, L_asc)
         if has_asc:
-            designs(L_scr, L_asc * f_)
-    curves = _curves(designs, m, L_scr, L_asc)
+            coarse(L_scr, L_asc * f_)
+    curves = _curves(coarse, m, L_scr, L_asc)
     cost = None
     if sz.get("cost_per_L"):
         cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(b.catalysts[0].key, 0.0)
@@ -299,7 +316,8 @@ def size_case(case, *, progress=None) -> SizingResult:
     return SizingResult(case=case, feasible=feasible and res.converged, train=train, run=res,
                         binding=sorted(set(binding)), curves=curves, problems=problems,
                         suggestions=sorted(set(suggestions)), margins=margins,
-                        evaluations=len(designs.cache), train_solves=designs.solves,
+                        evaluations=len(designs.cache) + len(coarse.cache),
+                        train_solves=designs.solves + coarse.solves,
                         seconds=time.perf_counter() - t0, cost=cost)
 
 
@@ -336,7 +354,8 @@ def _suggest(res, quantities, margin, case) -> list[str]:
 
 
 def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> list[dict]:
-    """Rows for every design evaluated; ``sweep`` says which length varies around the answer."""
+    """Rows for every design evaluated on the search grid; ``sweep`` says which length varies
+    around the answer (``search``: points of the search itself)."""
     rows = []
     for (Ls, La), res in designs.cache.items():
         sweep = ("SCR" if abs(La - L_asc) <= 1e-6 * max(L_asc, 1e-9) else
