@@ -81,19 +81,22 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
+def _with_status(args, label: str, compute):
+    """Run ``compute(progress)``: quietly with --json, else with a status line on stderr."""
+    if args.json:
+        return compute(None)
+    from rich.console import Console
+    with Console(stderr=True).status(f"{label}...") as status:
+        return compute(lambda text: status.update(f"{label}: {text}"))
+
+
 def _run(args) -> int:
     from .cyclecase import load_run_case
     from .evaluate import run_case
     from .output import SAFETY_NOTE, to_json
     case = load_run_case(args.case, args.set)
-    if args.json:
-        result = run_case(case)
-    else:
-        from rich.console import Console
-        con = Console(stderr=True)
-        with con.status("solving...") as status:
-            result = run_case(case, progress=lambda i, n, name: status.update(
-                f"mode {i + 1}/{n}: {name}"))
+    result = _with_status(args, "solving", lambda p: run_case(
+        case, progress=None if p is None else lambda i, n, name: p(f"mode {i + 1}/{n}: {name}")))
     if args.report:
         from .report import write_report
         write_report(result, args.report)
@@ -113,12 +116,7 @@ def _size(args) -> int:
     from .output import SAFETY_NOTE, to_json
     from .sizing import size_case
     case = load_run_case(args.case, args.set)
-    if args.json:
-        res = size_case(case)
-    else:
-        from rich.console import Console
-        with Console(stderr=True).status("sizing...") as status:
-            res = size_case(case, progress=lambda text: status.update(f"sizing: {text}"))
+    res = _with_status(args, "sizing", lambda p: size_case(case, progress=p))
     if args.report:
         from .report import write_size_report
         write_size_report(res, args.report)
