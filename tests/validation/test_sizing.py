@@ -131,3 +131,16 @@ def test_size_json_contract(sized):
     assert o["run"]["schema"] == "aftertreat.run/1"
     assert o["total_volume_L"] == pytest.approx(sum(b["volume_L"] for b in o["bricks"]))
     assert SIZING_TOL <= 0.01
+
+
+def test_smallest_root_finder():
+    """The bracketing + Illinois search finds the smallest compliant x of a decreasing function
+    to the stated tolerance (here f = 2 exp(-3 (x - 0.3)), root 0.3 + ln 2 / 3; arithmetic)."""
+    from aftertreat.sizing import _smallest
+    root = 0.3 + math.log(2.0) / 3.0
+    for x0 in (0.05, 0.5, 3.0):
+        x, ok, fx = _smallest(lambda x: 2.0 * math.exp(-3.0 * (x - 0.3)), x0, 0.02, 4.0)
+        assert ok and fx <= 1.0
+        assert root <= x <= root * (1 + SIZING_TOL) + 1e-12
+    x, ok, _ = _smallest(lambda x: 5.0, 0.1, 0.02, 4.0)
+    assert not ok and x == 4.0
