@@ -5,6 +5,7 @@ Subcommands:
     aftertreat size CASE [--set KEY=VALUE ...] [--json] [--report DIR]  size SCR and slip catalyst
     aftertreat point CASE [--set KEY=VALUE ...] [--json]   solve the train at the case's exhaust
     aftertreat catalysts [KEY]                              list catalysts, or one's provenance
+    aftertreat sources CASE                                 the sources behind a case's numbers
 
 Exit codes: 0 computed (whether or not anything passes), 2 bad input, 1 a failure of ours
 (including a solver that did not converge), with a one-line reason on stderr.
@@ -54,6 +55,9 @@ def _build_parser() -> argparse.ArgumentParser:
                     help="override a case value by its dotted path, e.g. "
                          "'brick.SCR 1.length=700 mm' (repeatable)")
     pt.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    so = sub.add_parser("sources", help="list the sources behind a case's numbers: catalysts, "
+                        "correlations, cycle and limits")
+    so.add_argument("case", help="case file (TOML)")
     ct = sub.add_parser("catalysts", help="list the shipped catalysts, or show one's parameters "
                         "and their provenance")
     ct.add_argument("key", nargs="?", help="catalyst key or file")
@@ -72,6 +76,8 @@ def main(argv: list[str] | None = None) -> int:
             return _point(args)
         if args.command == "catalysts":
             return _catalysts(args)
+        if args.command == "sources":
+            return _sources(args)
     except InputError as exc:
         return _fail(2, str(exc))
     except ConvergenceError as exc:
@@ -292,6 +298,40 @@ def _print_point(case, sol, safety: str) -> None:
               f"{sol.seconds * 1e3:.0f} ms. Kinetic parameters and their provenance: "
               "'aftertreat catalysts KEY'.")
     con.print(f"[dim]{safety}[/dim]")
+
+
+def _sources(args) -> int:
+    """Sources behind a case, without solving it."""
+    from .case import load_case, read_toml
+    from .citations import MODEL_SOURCES
+    data = read_toml(args.case)
+    if "cycle" in data:
+        from .cyclecase import load_run_case
+        case = load_run_case(args.case)
+    else:
+        case = load_case(args.case)
+    lines, seen = [], set()
+    for b in case.train.bricks:
+        for c in b.catalysts:
+            for line in c.citations():
+                if line not in seen:
+                    seen.add(line)
+                    lines.append(f"catalyst {c.key}: {line}")
+        for key in (b.sherwood, "shah_london_1978", "kays_london_1984", "rennels_2012",
+                    "cantera"):
+            if MODEL_SOURCES[key] not in seen:
+                seen.add(MODEL_SOURCES[key])
+                lines.append(f"model: {MODEL_SOURCES[key]}")
+    if hasattr(case, "cycle"):
+        lines.append(f"cycle {case.cycle.name}: {case.cycle.source} "
+                     f"(confidence: {case.cycle.confidence})")
+        for ls in case.limit_sets:
+            lines.append(f"limits {ls.name}: {ls.source} (confidence: {ls.confidence})")
+    print(f"Sources behind {case.title}:")
+    for line in lines:
+        print(f"  - {line}")
+    print("Every kinetic parameter and its provenance: aftertreat catalysts KEY")
+    return 0
 
 
 def _catalysts(args) -> int:

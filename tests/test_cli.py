@@ -125,3 +125,12 @@ def test_catalyst_listing_and_provenance(capsys):
     out = capsys.readouterr().out
     assert "from memory" in out and "fitted" in out
     assert main(["catalysts", "no_such"]) == 2
+
+
+def test_sources_command(capsys):
+    """`aftertreat sources CASE` names the catalyst papers, correlations, cycle and limit sources
+    without solving (CONVENTIONS: the program can print the sources behind any result)."""
+    assert main(["sources", str(ROOT / "cases" / "marine_e3_tier3.toml")]) == 0
+    out = capsys.readouterr().out
+    assert "Nova" in out and "Tronconi" in out and "E3" in out and "MARPOL" in out
+    assert main(["sources", str(DEMO)]) == 0
