@@ -41,6 +41,8 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     max_diameter_mm = 1500             # ... and diameter
     face_velocity_m_s = 4.0            # diameter from the face velocity at the largest flow
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
+    choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
+    ANR_excess = 0.02                  # at most the [dosing] ANR of the case
 """
 from __future__ import annotations
 
@@ -68,7 +70,8 @@ _OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
 _DOSING = {"method", "ANR", "urea_mass_fraction"}
 _LIMITS = {"sets", "gwp", "custom"}
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
-           "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm"}
+           "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
+           "choose_ANR", "ANR_excess"}
 
 
 @dataclass
@@ -282,6 +285,17 @@ def _sizing(data, file) -> dict:
                 raise InputError(f"expected a number within [{lo}, {hi}]", key=f"sizing.{k}",
                                  value=v, file=file)
             out[k] = float(v)
+    if "choose_ANR" in s:
+        if not isinstance(s["choose_ANR"], bool):
+            raise InputError("expected true or false", key="sizing.choose_ANR",
+                             value=s["choose_ANR"], file=file)
+        out["choose_ANR"] = s["choose_ANR"]
+    if "ANR_excess" in s:
+        v = s["ANR_excess"]
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 <= v <= 0.5:
+            raise InputError("expected a number within [0, 0.5]", key="sizing.ANR_excess",
+                             value=v, file=file)
+        out["ANR_excess"] = float(v)
     if "cost_per_L" in s:
         c = s["cost_per_L"]
         if not isinstance(c, dict) or not all(isinstance(v, (int, float)) and v >= 0

@@ -53,18 +53,32 @@ class ModeResult:
 
     def emissions(self, stream: Stream | None = None):
         """Mass flows [g/h] and dry ppm of a stream (default the train outlet)."""
-        s = self.outlet if stream is None else stream
-        F = s.F
-        x_h2o = F[INDEX["H2O"]] / F.sum()
-        dry = s.ppm_dry()
-        co2 = max(F[INDEX["CO2"]] - self.air_CO2_mol_s, 0.0)
-        return {"NOx_g_h": emissions.nox_g_h(F[INDEX["NO"]], F[INDEX["NO2"]]),
-                "N2O_g_h": emissions.mass_flow_g_h(F[INDEX["N2O"]], "N2O"),
-                "NH3_g_h": emissions.mass_flow_g_h(F[INDEX["NH3"]], "NH3"),
-                "CO2_g_h": emissions.mass_flow_g_h(co2, "CO2"),
-                "ppmvd": {sp: dry[sp] for sp in ("NO", "NO2", "NH3", "N2O")} |
-                         {"NOx": dry["NO"] + dry["NO2"]},
-                "O2_dry_pct": dry["O2"] * 1e-4, "H2O_pct": x_h2o * 100.0}
+        return stream_emissions(self.outlet if stream is None else stream, self.air_CO2_mol_s)
+
+
+def stream_emissions(s: Stream, air_CO2_mol_s: float = 0.0) -> dict:
+    """Mass flows [g/h] (NOx as NO2; CO2 net of the intake air's) and dry ppm of a stream."""
+    F = s.F
+    x_h2o = F[INDEX["H2O"]] / F.sum()
+    dry = s.ppm_dry()
+    co2 = max(F[INDEX["CO2"]] - air_CO2_mol_s, 0.0)
+    return {"NOx_g_h": emissions.nox_g_h(F[INDEX["NO"]], F[INDEX["NO2"]]),
+            "N2O_g_h": emissions.mass_flow_g_h(F[INDEX["N2O"]], "N2O"),
+            "NH3_g_h": emissions.mass_flow_g_h(F[INDEX["NH3"]], "NH3"),
+            "CO2_g_h": emissions.mass_flow_g_h(co2, "CO2"),
+            "ppmvd": {sp: dry[sp] for sp in ("NO", "NO2", "NH3", "N2O")} |
+                     {"NOx": dry["NO"] + dry["NO2"]},
+            "O2_dry_pct": dry["O2"] * 1e-4, "H2O_pct": x_h2o * 100.0}
+
+
+def mode_emissions(name, weight, power_kW, cap_exempt, stream: Stream, air_CO2_mol_s=0.0):
+    """A :class:`aftertreat.limits.ModeEmissions` for one stream of one mode."""
+    from .limits import ModeEmissions
+    e = stream_emissions(stream, air_CO2_mol_s)
+    return ModeEmissions(name=name, weight=weight, power_kW=power_kW, cap_exempt=cap_exempt,
+                         NOx_g_h=e["NOx_g_h"], N2O_g_h=e["N2O_g_h"], NH3_g_h=e["NH3_g_h"],
+                         CO2_g_h=e["CO2_g_h"], ppmvd=e["ppmvd"], O2_dry_pct=e["O2_dry_pct"],
+                         x_H2O=e["H2O_pct"] / 100.0)
 
 
 @dataclass
@@ -257,10 +271,5 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None) -> C
 
 
 def _mode_emissions(m: ModeResult, limits, stream: Stream | None = None):
-    e = m.emissions(stream)
-    return limits.ModeEmissions(name=m.name, weight=m.weight, power_kW=m.power_kW,
-                                cap_exempt=m.cap_exempt, NOx_g_h=e["NOx_g_h"],
-                                N2O_g_h=e["N2O_g_h"], NH3_g_h=e["NH3_g_h"], CO2_g_h=e["CO2_g_h"],
-                                ppmvd=e["ppmvd"], O2_dry_pct=e["O2_dry_pct"],
-                                x_H2O=e["H2O_pct"] / 100.0)
-
+    return mode_emissions(m.name, m.weight, m.power_kW, m.cap_exempt,
+                          m.outlet if stream is None else stream, m.air_CO2_mol_s)

@@ -28,6 +28,7 @@ import numpy as np
 
 from .errors import InputError
 from .evaluate import mode_inlets, run_case
+from .species import INDEX
 from .train import Train
 
 __all__ = ["SizingResult", "size_case", "SIZING_TOL"]
@@ -200,11 +201,55 @@ def _face_velocity_diameter(case, inlets, v: float) -> float:
     return math.sqrt(4.0 * q / (math.pi * v))
 
 
+def choose_anr(case, margin: float, excess: float) -> np.ndarray:
+    """ANR per mode for dosing to a NOx-conversion target (common practice in SCR design).
+
+    At each mode the conversion needed is the largest of 1 - limit (1 - margin) / engine-out
+    value over the NOx limits that apply to that mode (per-mode rows) and to the cycle (the
+    cycle row asks the same conversion of every mode). The ANR doses that conversion plus
+    ``excess``, never more than the case's ANR (the upper bound the owner allows) and never less
+    than the engine's own NH3 already gives (ANR counts engine-out NH3).
+    """
+    from . import limits as lm
+    from .evaluate import engine_out_stream, mode_emissions
+    n = case.n_modes
+    heads, own = [], np.zeros(n)
+    for i, mode in enumerate(case.cycle.modes):
+        power, eo, air_co2 = engine_out_stream(case, i)
+        heads.append(mode_emissions(mode.name, mode.weight, power,
+                                    bool(getattr(mode, "cap_exempt", False)), eo, air_co2))
+        F = eo.F
+        nox = F[INDEX["NO"]] + F[INDEX["NO2"]]
+        own[i] = F[INDEX["NH3"]] / nox if nox > 0 else 0.0
+    need = np.zeros(n)
+    for ls in case.limit_sets:
+        for r in lm.evaluate(ls, heads, rated_speed_rpm=case.engine.rated_speed_rpm,
+                             gwp_set=case.gwp_set, rated_power_kW=case.engine.rated_power_kW):
+            if not r["quantity"].startswith("NOx") or r.get("limit") is None or r["value"] <= 0:
+                continue
+            x = max(0.0, 1.0 - r["limit"] * (1.0 - margin) / r["value"])
+            if r.get("mode") is None:
+                need = np.maximum(need, x)
+            else:
+                names = [mode.name for mode in case.cycle.modes]
+                idx = names.index(r["mode"]) if r["mode"] in names else None
+                if idx is not None:
+                    need[idx] = max(need[idx], x)
+    return np.minimum(np.maximum(need + excess, own), case.dosing["ANR"])
+
+
 def size_case(case, *, progress=None) -> SizingResult:
-    """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``)."""
+    """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``).
+
+    Where dosing is allowed and ``[sizing] choose_ANR`` is true (the default), the ANR of each
+    mode is chosen first (:func:`choose_anr`) and the case's ANR acts as the upper bound.
+    """
     t0 = time.perf_counter()
     sz = case.sizing
     m = sz["design_margin"]
+    if case.dosing["method"] != "none" and sz.get("choose_ANR", True):
+        anr = choose_anr(case, m, sz.get("ANR_excess", 0.02))
+        case = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
     D = case.train.bricks[0].diameter
     designs = None
     if sz.get("face_velocity_m_s"):
