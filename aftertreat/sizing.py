@@ -40,7 +40,7 @@ SIZING_TOL = 0.005
 _ACCEPT = 1.0 - 1e-5
 #: (cells, washcoat nodes per layer) of the coarse search grid; the answer is polished on the
 #: case's own grid.
-COARSE_GRID = (10, 4)
+COARSE_GRID = (8, 4)
 
 
 @dataclass

@@ -45,7 +45,8 @@ class Train:
         """Steady state of the train fed by ``inlet`` (the stream at the first brick's face).
 
         ``guess`` is a previous solution of the same train layout (same cell counts) used to
-        warm-start each brick; sizing loops and what-ifs pass it in.
+        warm-start each brick; sizing loops and what-ifs pass it in. A brick of ``guess`` that is
+        the same problem as now (same brick, same inlet) is reused without solving.
         """
         t0 = time.perf_counter()
         sols: list[BrickSolution] = []
@@ -53,12 +54,35 @@ class Train:
         for i, b in enumerate(self.bricks):
             g = None
             if guess is not None and i < len(guess.bricks):
-                g = guess.bricks[i].state
+                prev = guess.bricks[i]
+                if prev.converged and _same_brick(prev.brick, b) and _same_stream(prev.inlet,
+                                                                                  stream):
+                    sols.append(prev)           # same brick, same inlet: the same steady state
+                    stream = prev.outlet
+                    continue
+                g = prev.state
             sol = solve_brick(b, stream, guess=g, settings=settings)
             sols.append(sol)
             stream = sol.outlet
         return TrainSolution(train=self, inlet=inlet, bricks=sols,
                              seconds=time.perf_counter() - t0)
+
+
+def _same_brick(a: Brick, b: Brick) -> bool:
+    """True when two bricks define the same steady problem (same catalyst objects)."""
+    if a is b:
+        return True
+    return (len(a.catalysts) == len(b.catalysts)
+            and all(x is y for x, y in zip(a.catalysts, b.catalysts))
+            and (a.substrate, a.length, a.diameter, a.activity, a.washcoat, a.nodes_per_layer,
+                 a.cells, a.sherwood, a.film, a.apparent_friction, a.heat_loss_W_m2K,
+                 a.T_ambient) ==
+            (b.substrate, b.length, b.diameter, b.activity, b.washcoat, b.nodes_per_layer,
+             b.cells, b.sherwood, b.film, b.apparent_friction, b.heat_loss_W_m2K, b.T_ambient))
+
+
+def _same_stream(a: Stream, b: Stream) -> bool:
+    return a.T == b.T and a.p == b.p and np.array_equal(a.F, b.F)
 
 
 @dataclass
