@@ -81,6 +81,14 @@ class SizingResult:
         return pd.DataFrame(self.curves).sort_values(["SCR_length_mm", "ASC_length_mm"])
 
 
+def _design_value(res, r) -> float:
+    """The value a design margin applies to: unrounded (a limit set may round the reported
+    cycle value, e.g. to one decimal for IMO; the margin should not profit from that)."""
+    if r.get("mode") is None and r["quantity"] in res.cycle:
+        return max(float(res.cycle[r["quantity"]]), float(r["value"]))
+    return float(r["value"])
+
+
 def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
     """Worst value/(limit x (1 - margin)) over the limit rows whose quantity starts with one of
     ``quantities``; and the rows in that group."""
@@ -88,8 +96,11 @@ def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
             and r.get("limit") is not None]
     if not rows:
         return 0.0, []
-    ratios = [r["value"] / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
-              (0.0 if r["value"] <= 0 else math.inf) for r in rows]
+    ratios = []
+    for r in rows:
+        v = _design_value(res, r)
+        ratios.append(v / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
+                      (0.0 if v <= 0 else math.inf))
     return max(ratios), rows
 
 
@@ -328,7 +339,7 @@ def size_case(case, *, progress=None) -> SizingResult:
         if r.get("limit") is None:
             continue
         lim_m = r["limit"] * (1.0 - m)
-        ratio = r["value"] / lim_m if lim_m > 0 else math.inf
+        ratio = _design_value(res, r) / lim_m if lim_m > 0 else math.inf
         margins.append({"name": r["name"], "mode": r.get("mode"), "value": r["value"],
                         "limit": r["limit"], "unit": r["unit"],
                         "margin_pct": 100.0 * (1.0 - r["value"] / r["limit"])
@@ -336,7 +347,8 @@ def size_case(case, *, progress=None) -> SizingResult:
         if ratio > 1.0:
             feasible = False
             problems.append(f"{r['name']}" + (f" at mode {r['mode']}" if r.get("mode") else "")
-                            + f": {r['value']:.3g} > {lim_m:.3g} {r['unit']} (limit with margin)")
+                            + f": {_design_value(res, r):.3g} > {lim_m:.3g} {r['unit']} "
+                            "(limit with margin)")
             suggestions += _suggest(res, (r["quantity"],), m, case)
         elif ratio > 1.0 - 3 * SIZING_TOL - 0.01:
             binding.append(r["name"])
@@ -375,9 +387,9 @@ def _failing(res, quantities, margin) -> list[str]:
     out = []
     for r in res.limits:
         if r["quantity"].startswith(quantities) and r.get("limit") is not None and \
-                r["value"] > r["limit"] * (1.0 - margin):
+                _design_value(res, r) > r["limit"] * (1.0 - margin):
             where = f" at mode {r['mode']}" if r.get("mode") else ""
-            out.append(f"{r['name']}{where}: {r['value']:.3g} {r['unit']} against "
+            out.append(f"{r['name']}{where}: {_design_value(res, r):.3g} {r['unit']} against "
                        f"{r['limit'] * (1.0 - margin):.3g} with the design margin")
     return out
 
@@ -386,7 +398,7 @@ def _suggest(res, quantities, margin, case) -> list[str]:
     """What would change an infeasible answer, by the kind of limit that fails."""
     kinds = {r["quantity"].split("_")[0] for r in res.limits
              if r["quantity"].startswith(quantities) and r.get("limit") is not None
-             and r["value"] > r["limit"] * (1.0 - margin)}
+             and _design_value(res, r) > r["limit"] * (1.0 - margin)}
     out = []
     if "NOx" in kinds:
         out += ["a more active catalyst or a higher cell density",
