@@ -40,6 +40,7 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     max_length_mm = 3000               # space envelope: total train length ...
     max_diameter_mm = 1500             # ... and diameter
     face_velocity_m_s = 4.0            # diameter from the face velocity at the largest flow
+    diameter_from_dp = true            # then raise the diameter until dp_max_kPa is met
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
     choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
     ANR_excess = 0.02                  # at most the [dosing] ANR of the case
@@ -71,7 +72,7 @@ _DOSING = {"method", "ANR", "urea_mass_fraction"}
 _LIMITS = {"sets", "gwp", "custom"}
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
            "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
-           "choose_ANR", "ANR_excess"}
+           "choose_ANR", "ANR_excess", "diameter_from_dp"}
 
 
 @dataclass
@@ -285,11 +286,12 @@ def _sizing(data, file) -> dict:
                 raise InputError(f"expected a number within [{lo}, {hi}]", key=f"sizing.{k}",
                                  value=v, file=file)
             out[k] = float(v)
-    if "choose_ANR" in s:
-        if not isinstance(s["choose_ANR"], bool):
-            raise InputError("expected true or false", key="sizing.choose_ANR",
-                             value=s["choose_ANR"], file=file)
-        out["choose_ANR"] = s["choose_ANR"]
+    for flag in ("choose_ANR", "diameter_from_dp"):
+        if flag in s:
+            if not isinstance(s[flag], bool):
+                raise InputError("expected true or false", key=f"sizing.{flag}", value=s[flag],
+                                 file=file)
+            out[flag] = s[flag]
     if "ANR_excess" in s:
         v = s["ANR_excess"]
         if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 <= v <= 0.5:

@@ -173,3 +173,18 @@ def test_anr_chosen_to_the_nox_target():
         i = names.index(r["mode"])
         x = anr[i] - excess
         assert r["value"] * (1.0 - x) <= r["limit"] * (1.0 - margin) * (1 + 1e-9)
+
+
+def test_diameter_raised_for_the_back_pressure_budget(tmp_path):
+    """With diameter_from_dp the diameter grows until the sized train meets the pressure-drop
+    budget (laminar dp ~ V / D^4 at a given catalyst volume: Hagen-Poiseuille)."""
+    data = case_data(tmp_path, dp_max_kPa=0.02, diameter_from_dp=True, max_diameter_mm=2000.0)
+    case = parse_run_case(data, str(tmp_path / "c.toml"))
+    base = size_case(parse_run_case(case_data(tmp_path), str(tmp_path / "c0.toml")))
+    dp0 = max(m.solution.dp_Pa for m in base.run.modes) / 1e3
+    assert dp0 > 0.02                      # the budget is binding at the case's diameter
+    res = size_case(case)
+    dp = max(m.solution.dp_Pa for m in res.run.modes) / 1e3
+    assert res.train.bricks[0].diameter > base.train.bricks[0].diameter
+    assert dp <= 0.02 * 1.001
+    assert res.feasible
