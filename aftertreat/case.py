@@ -37,7 +37,7 @@ from .brick import WASHCOAT_MODELS, Brick
 from .catalyst import LayeredCatalyst, load_catalyst
 from .errors import InputError, did_you_mean
 from .geometry import Substrate
-from .species import INDEX, SPECIES
+from .species import SPECIES
 from .stream import Stream
 from .train import Train
 from .units import to_si
@@ -133,16 +133,6 @@ def parse_exhaust(ex: dict, file: str) -> Stream:
                 y[s] = v * scale
     if "N2" in y:
         raise InputError("N2 is the balance; do not give it", key=pre + "N2", file=file)
-    h2o = y.pop("H2O", 0.0)
-    if h2o >= 1:
-        raise InputError("expected a water fraction below 100 %", key=pre + "H2O_pct",
-                         value=h2o * 100, file=file)
-    if basis == "dry":
-        y = {k: v * (1.0 - h2o) for k, v in y.items()}
-    y["H2O"] = h2o
-    if sum(y.values()) > 1.0:
-        raise InputError("mole fractions add up to more than 100 %", key="exhaust",
-                         value=round(sum(y.values()) * 100, 3), file=file)
     mass = _quantity(ex, "mass_flow", "kg/s", ("kg_s", "kg/s"), file, pre, required=False)
     molar = _quantity(ex, "molar_flow", "mol/s", ("mol_s", "mol/s"), file, pre, required=False)
     if (mass is None) == (molar is None):
@@ -150,7 +140,19 @@ def parse_exhaust(ex: dict, file: str) -> Stream:
                          file=file)
     _positive(mass if mass is not None else molar, pre + ("mass_flow" if mass else "molar_flow"),
               file, "a flow > 0")
-    return Stream.from_mole_fractions(y, T=T, p=p, total_mol_s=molar, mass_kg_s=mass)
+    nox = y.get("NO", 0.0) + y.get("NO2", 0.0)
+    from .combustion import exhaust_from_measurements
+    try:
+        return exhaust_from_measurements(
+            T_K=T, p_Pa=p, mass_flow_kg_s=mass, molar_flow_mol_s=molar,
+            H2O_pct=100.0 * y.get("H2O", 0.0), O2_pct=100.0 * y.get("O2", 0.0),
+            NOx_ppm=1e6 * nox, NO2_fraction=y.get("NO2", 0.0) / nox if nox > 0 else 0.0,
+            NH3_ppm=1e6 * y.get("NH3", 0.0), N2O_ppm=1e6 * y.get("N2O", 0.0),
+            H2_ppm=1e6 * y.get("H2", 0.0), CO2_pct=100.0 * y.get("CO2", 0.0),
+            Ar_pct=100.0 * y.get("Ar", 0.0), basis=basis)
+    except InputError as exc:
+        raise InputError(exc.expected, key=pre + (exc.key or ""), value=exc.value,
+                         file=file) from None
 
 
 def parse_brick(b: dict, i: int, file: str) -> Brick:
