@@ -31,7 +31,8 @@ r_r / c_s,k (Thiele 1939; Aris 1975, *The Mathematical Theory of Diffusion and R
 Permeable Catalysts*). ``resolved`` puts graded finite volumes across every layer with flux
 continuity between layers and no flux at the wall.
 
-Numerics. The unknowns of all cells are solved together by Newton's method. The Jacobian is block
+Numerics (:mod:`aftertreat.newton`). The unknowns of all cells are solved together by Newton's
+method. The Jacobian is block
 lower-bidiagonal along the brick; its blocks come from forward differences evaluated in one
 vectorised residual call that stacks every perturbed copy of the brick (washcoat nodes three apart
 are perturbed together), and the system is solved by batched block solves plus a short recurrence
@@ -50,7 +51,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import transport
+from . import newton, transport
 from .brick import Brick
 from .errors import ConvergenceError
 from .gas import GasProperties
@@ -105,16 +106,6 @@ class BrickSolution:
         return self.F[:, INDEX[species]] / self.F.sum(axis=1) * 1e6
 
 
-def _log_mean_pos(a, b):
-    """Logarithmic mean of positive a, b (the arithmetic mean where they nearly agree)."""
-    a = np.maximum(a, 1e-300)
-    b = np.maximum(b, 1e-300)
-    close = np.abs(a - b) <= 1e-6 * (a + b)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lm = (a - b) / np.log(a / b)
-    return np.where(close, 0.5 * (a + b), lm)
-
-
 _FLOOR = 1e-3
 
 
@@ -136,13 +127,6 @@ def cell_mean(c_in, c_out):
         slope = np.where(lnr > 1e-6, (a / b - 1.0 - lnr) / lnr ** 2, 0.5)
     lm = lm + slope * np.minimum(np.where(falling, c_out, 1.0) - b, 0.0)
     return np.where(falling, lm, 0.5 * (c_in + c_out))
-
-
-def signed_log_mean(d_in, d_out):
-    """Log mean of two differences of one sign (LMTD); arithmetic mean if the sign changes."""
-    same = d_in * d_out > 0
-    lm = np.sign(d_in) * _log_mean_pos(np.abs(d_in), np.abs(d_out))
-    return np.where(same, lm, 0.5 * (d_in + d_out))
 
 
 #: Ratio of the deepest to the shallowest node of a resolved layer. Nodes grow geometrically from
@@ -444,252 +428,6 @@ class _BrickModel:
         return F_in, Tg_in
 
 
-def _newton_step(model: _BrickModel, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
-    """Solve J dx = -R (plus an optional pseudo-time diagonal) for the block-bidiagonal J.
-
-    The Jacobian is formed by forward differences in one vectorised residual call holding every
-    perturbed copy of the brick: one copy per gas unknown (flows, temperatures), one per inflow
-    quantity (the coupling to the upstream cell), and for the washcoat nodes one copy per node
-    variable and *colour*: nodes three apart are perturbed together, since a node's balance sees
-    only its neighbours. Their effect on the gas rows (linear in each node's rates) is rebuilt
-    from each node's own rate change, so the copies needed do not grow with the node count.
-    """
-    n, nv = model.n, model.nv
-    ng = NSP + 1
-    nd = model.ic0                                         # directly perturbed columns
-    nn, nf, ns = model.nnode, model.nf, model.ns
-    nvar = nf + ns                                         # unknowns per washcoat node
-    ncol = min(3, nn)
-    h = fd_step * model.scales(x)                          # [n, nv]
-    # step coverages inward from their upper bound (clipped rates are flat beyond theta = 1)
-    th = x[:, model.ith0:]
-    h[:, model.ith0:] = np.where(th > 0.5, -h[:, model.ith0:], h[:, model.ith0:])
-    hF = fd_step * np.maximum(np.abs(F_in), model.F_in_tot * 1e-6)
-    hT = fd_step * np.maximum(np.abs(Tg_in), 1.0)
-
-    def node_col(node, v):
-        return model.ic0 + node * nf + v if v < nf else model.ith0 + node * ns + (v - nf)
-
-    m = nd + ncol * nvar + ng
-    X = np.broadcast_to(x, (m, n, nv)).copy()
-    idx = np.arange(nd)
-    X[idx, :, idx] += h[:, :nd].T
-    groups = []                                            # (copy, colour, variable)
-    for g in range(ncol):
-        for v in range(nvar):
-            copy = nd + g * nvar + v
-            cols = [node_col(j, v) for j in range(g, nn, 3)]
-            X[copy][:, cols] += h[:, cols]
-            groups.append((copy, g, v))
-    o = nd + ncol * nvar
-    Fin = np.broadcast_to(F_in, (m, n, NSP)).copy()
-    Fin[o + np.arange(NSP), :, np.arange(NSP)] += hF.T
-    Tin = np.broadcast_to(Tg_in, (m, n)).copy()
-    Tin[o + NSP] += hT
-    rows = np.tile(np.arange(n), m)
-    Rall, rates, hA, dH = model.residual(X.reshape(m * n, nv), Fin.reshape(m * n, NSP),
-                                         Tin.reshape(m * n), rows, want_rates=True)
-    Rall = Rall.reshape(m, n, nv)
-    dR = Rall - R[None]
-    B = np.zeros((n, nv, nv))
-    B[:, :, :nd] = (dR[:nd] / h[:, :nd].T[:, :, None]).transpose(1, 2, 0)
-    if nn and nvar:
-        rates = [r.reshape((m, n) + r.shape[1:]) for r in rates]
-        hA = hA.reshape(m, n)[0]
-        dH = [d.reshape((m, n) + d.shape[1:])[0] for d in dH]
-        vol = model.A * model.dz
-        node_rows = [np.r_[model.ic0 + j * nf: model.ic0 + (j + 1) * nf] for j in range(nn)]
-        th_rows = [np.r_[model.ith0 + j * ns: model.ith0 + (j + 1) * ns] for j in range(nn)]
-        for copy, g, v in groups:
-            for j in range(g, nn, 3):
-                col = node_col(j, v)
-                hj = h[:, col][:, None]
-                for jj in range(max(j - 1, 0), min(j + 2, nn)):
-                    B[:, node_rows[jj], col] = dR[copy][:, node_rows[jj]] / hj
-                B[:, th_rows[j], col] = dR[copy][:, th_rows[j]] / hj
-                # gas rows through this node's rates only
-                k = model.node_layer[j]
-                jl = int(np.searchsorted(model.layer_nodes[k], j))
-                dr = (rates[k][copy][:, jl, :] - rates[k][0][:, jl, :]) / hj       # [n, nrxn]
-                xi = vol * model.node_frac[j] * dr
-                B[:, :NSP, col] = -(xi @ model.nu_equiv[k]) / model.F_in_tot
-                B[:, model.iTs, col] = -(xi * dH[k]).sum(axis=1) / hA
-    C = np.empty((n, nv, ng))
-    C[:, :, :NSP] = (dR[o:o + NSP] / hF.T[:, :, None]).transpose(1, 2, 0)
-    C[:, :, NSP] = dR[o + NSP] / hT[:, None]
-    if ptc_diag is not None:
-        # implicit Euler on dx/dt = R (coverage and solid-temperature rows are written so that
-        # the residual is the rate of change): (J - I/tau) dx = -R
-        B[:, np.arange(nv), np.arange(nv)] -= ptc_diag
-    sol = np.linalg.solve(B, np.concatenate([-R[:, :, None], C], axis=2))
-    a, G = sol[:, :, 0], sol[:, :, 1:]                     # B^-1 (-R), B^-1 C   [n, nv, ng]
-    gas = np.r_[np.arange(NSP), model.iTg]
-    dx = np.empty((n, nv))
-    dx[0] = a[0]
-    for j in range(1, n):
-        dx[j] = a[j] - G[j] @ dx[j - 1, gas]
-    return dx
-
-
-def _norm(model: _BrickModel, R) -> float:
-    """Largest scaled residual, temperature rows [K] weighted by 1e-3.
-
-    The temperature rows balance heat flows of order kW to a fraction of a watt and bottom out at
-    ~1e-12 K from round-off on fine grids, so they are held to 1e-9 K when the species and coverage
-    rows are held to the tolerance (1e-12) itself.
-    """
-    if not R.size:
-        return 0.0
-    w = np.abs(R)
-    w[:, model.iTg] *= 1e-3
-    w[:, model.iTs] *= 1e-3
-    return float(np.max(w))
-
-
-def _solve_cell(model: _BrickModel, j: int, xj, F_in, Tg_in, st: SolverSettings, diag_mask):
-    """Solve the balances of cell ``j`` alone for a given inflow (Newton, then local
-    pseudo-transient continuation if Newton does not converge). Returns (x_j, converged)."""
-    nv = model.nv
-    rows1 = np.array([j])
-    rowsn = np.full(nv, j)
-    Fn = np.broadcast_to(F_in, (nv, NSP))
-    Tn = np.full(nv, Tg_in)
-
-    def res_of(v):
-        return model.residual(v[None, :], F_in[None, :], np.array([Tg_in]), rows1)[0]
-
-    x = xj.copy()
-    tau = None
-    for it in range(60):
-        R = res_of(x)
-        res = _norm(model, R[None, :])
-        if res < st.tol:
-            return x, True
-        h = st.fd_step * model.scales(x[None, :])[0]
-        h[model.ith0:] = np.where(x[model.ith0:] > 0.5, -h[model.ith0:], h[model.ith0:])
-        X = x[None, :] + np.diag(h)
-        Jm = ((model.residual(X, Fn, Tn, rowsn) - R[None, :]) / h[:, None]).T
-        if tau is not None:
-            Jm = Jm - np.diag(diag_mask / tau)
-        try:
-            dx = np.linalg.solve(Jm, -R)
-        except np.linalg.LinAlgError:
-            dx = np.linalg.lstsq(Jm, -R, rcond=None)[0]
-        alpha = 1.0
-        for _ in range(8):
-            xn = model.clip((x + alpha * dx)[None, :])[0]
-            rn = _norm(model, res_of(xn)[None, :])
-            if np.isfinite(rn) and (rn < res or tau is not None):
-                break
-            alpha *= 0.5
-        if not np.isfinite(rn):
-            if tau is None:
-                tau = 1e-2
-            tau *= 0.1
-            continue
-        if tau is None and rn >= res:
-            tau = 1e-2                        # Newton failed here: pseudo-time on this cell
-            continue
-        x = xn
-        if tau is not None:
-            tau *= min(max(res / max(rn, 1e-300), 0.2), 10.0)
-            if tau > 1e6:
-                tau = None
-    return x, _norm(model, res_of(x)[None, :]) < st.tol
-
-
-def _march(model: _BrickModel, x0, st: SolverSettings):
-    """Solve cell after cell downstream: exact for the upwind (block-triangular) balances, and
-    robust, since each cell starts from its converged upstream neighbour."""
-    diag_mask = np.zeros(model.nv)
-    diag_mask[model.ith0:] = model.site_used.ravel() if model.ns else 0.0
-    diag_mask[model.iTs] = 1.0
-    x = x0.copy()
-    F_in, Tg_in = model.inlet.F.copy(), model.inlet.T
-    for j in range(model.n):
-        start = x[j] if j == 0 else x[j - 1]
-        xj, _ = _solve_cell(model, j, start, F_in, Tg_in, st, diag_mask)
-        x[j] = xj
-        F_in, Tg_in = xj[:NSP].copy(), xj[model.iTg]
-    return x
-
-
-def _iterate(model: _BrickModel, x0, st: SolverSettings):
-    """Newton with backtracking; on stagnation, pseudo-transient continuation from the start.
-
-    Pseudo-transient continuation (Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508) advances
-    coverage and solid temperature by implicit Euler steps whose size grows as the residual falls
-    (switched evolution relaxation), then hands over to Newton. The total number of linear solves
-    is bounded by ``max_newton + max_ptc_steps``, and continuation restarts at most twice.
-    """
-    diag_mask = np.zeros(model.nv)
-    diag_mask[model.ith0:] = model.site_used.ravel() if model.ns else 0.0
-    diag_mask[model.iTs] = 1.0
-    x = x0.copy()
-    its = 0
-    budget = st.max_newton + st.max_ptc_steps
-    newton_left = st.max_newton
-    restarts = 0
-    tau = None                                 # None: plain Newton
-    ref = np.inf                               # non-monotone reference for the line search
-    best_res, best_x = np.inf, x0.copy()
-    while its < budget:
-        F_in, Tg_in = model.inflow(x)
-        R = model.residual(x, F_in, Tg_in)
-        res = _norm(model, R)
-        if res < best_res:
-            best_res, best_x = res, x.copy()
-        if res < st.tol:
-            break
-        # non-monotone acceptance for the first Newton steps (they may cross a ridge), then
-        # plain decrease, which breaks the two-cycles that kinks in the model can cause
-        ref = (min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res) \
-            if newton_left > st.max_newton - 4 else res
-        diag = None if tau is None else diag_mask / tau
-        try:
-            dx = _newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
-        except np.linalg.LinAlgError:
-            dx = np.full_like(x, np.nan)
-        its += 1
-        alpha, accepted, res_new = 1.0, False, np.inf
-        for _ in range(10):
-            x_new = model.clip(x + alpha * dx)
-            R_new = model.residual(x_new, *model.inflow(x_new))
-            res_new = _norm(model, R_new)
-            if np.isfinite(res_new) and (res_new < ref or tau is not None):
-                accepted = True
-                break
-            alpha *= 0.5
-        if tau is None:
-            newton_left -= 1
-            stalled = alpha < 1.0 / 64.0 and res_new > 0.5 * res
-            if accepted and not stalled and newton_left >= 0:
-                x = x_new
-                continue
-            if best_res < st.tol_accept or restarts >= 2 or st.max_ptc_steps <= 0:
-                break                          # converged to round-off, or out of options
-            restarts += 1
-            if restarts == 1:
-                # Newton stalled: solve cell by cell from the inlet, then polish with Newton
-                x, newton_left, ref = _march(model, model.initial_state(), st), st.max_newton, np.inf
-                continue
-            # still stalled: restart from the crude state with pseudo-time stepping
-            x, tau, ref = model.initial_state(), st.tau0, np.inf
-            continue
-        if not np.isfinite(res_new):
-            tau *= 0.1
-            continue
-        x = x_new
-        # switched evolution relaxation (Mulder & van Leer 1985): step grows as the residual falls
-        tau *= min(max(res / max(res_new, 1e-300), 0.2), 10.0)
-        if tau > 1e6:
-            tau, newton_left, ref = None, st.max_newton, np.inf   # finish with Newton
-    F_in, Tg_in = model.inflow(x)
-    if _norm(model, model.residual(x, F_in, Tg_in)) > best_res:
-        x = best_x                             # never return worse than the best state seen
-    return x, its
-
-
 def solve_brick(brick: Brick, inlet: Stream, *, guess: np.ndarray | None = None,
                 settings: SolverSettings | None = None, check_validity: bool = True
                 ) -> BrickSolution:
@@ -706,10 +444,10 @@ def solve_brick(brick: Brick, inlet: Stream, *, guess: np.ndarray | None = None,
     model = _BrickModel(brick, inlet)
     x = model.initial_state() if guess is None or guess.shape != (model.n, model.nv) \
         else guess.copy()
-    x, its = _iterate(model, x, st)
+    x, its = newton.iterate(model, x, st)
     F_in, Tg_in = model.inflow(x)
     R = model.residual(x, F_in, Tg_in)
-    res = _norm(model, R)
+    res = newton.norm(model, R)
     converged = res < st.tol_accept      # tol is the target; round-off may stall just above it
     return _package(model, x, inlet, converged, res, its, time.perf_counter() - t0)
 
