@@ -247,6 +247,9 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
 
 def parse_case(data: dict, file: str) -> Case:
     """Validate a case dictionary (as read from TOML) into a :class:`Case`."""
+    if "cycle" in data and "exhaust" not in data:
+        raise InputError("this is a duty-cycle case (it has [cycle]): use 'aftertreat run' or "
+                         "'aftertreat size'", key="cycle", file=file)
     _unknown(data, _TOP, file, "")
     if "exhaust" not in data or not isinstance(data["exhaust"], dict):
         raise InputError("missing the [exhaust] table", key="exhaust", file=file)

@@ -43,7 +43,7 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     diameter_from_dp = true            # then raise the diameter until dp_max_kPa is met
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
     choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
-    ANR_excess = 0.02                  # at most the [dosing] ANR of the case
+    ANR_excess = 0.05                  # at most the [dosing] ANR of the case
 """
 from __future__ import annotations
 
@@ -310,6 +310,10 @@ def _sizing(data, file) -> dict:
 
 def parse_run_case(data: dict, file: str) -> RunCase:
     """Validate a duty-cycle case dictionary (as read from TOML)."""
+    if "exhaust" in data and "cycle" not in data:
+        raise InputError("this is a single-point case (it has [exhaust]): use 'aftertreat "
+                         "point', or give [engine], [cycle] and [engine_out] for a duty cycle",
+                         key="exhaust", file=file)
     _unknown(data, _TOP, file, "")
     engine = _engine(data, file)
     fuel = _fuel(data, file)

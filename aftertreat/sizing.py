@@ -219,7 +219,8 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     value over the NOx limits that apply to that mode (per-mode rows) and to the cycle (the
     cycle row asks the same conversion of every mode). The ANR doses that conversion plus
     ``excess``, never more than the case's ANR (the upper bound the owner allows) and never less
-    than the engine's own NH3 already gives (ANR counts engine-out NH3).
+    than the engine's own NH3 already gives (ANR counts engine-out NH3). A mode that no NOx limit
+    covers (below a load gate, say) keeps the case's ANR.
     """
     from . import limits as lm
     from .evaluate import engine_out_stream, mode_emissions
@@ -232,7 +233,7 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
         F = eo.F
         nox = F[INDEX["NO"]] + F[INDEX["NO2"]]
         own[i] = F[INDEX["NH3"]] / nox if nox > 0 else 0.0
-    need = np.zeros(n)
+    need = np.full(n, np.nan)          # NaN: no NOx limit applies to the mode
     for ls in case.limit_sets:
         for r in lm.evaluate(ls, heads, rated_speed_rpm=case.engine.rated_speed_rpm,
                              gwp_set=case.gwp_set, rated_power_kW=case.engine.rated_power_kW):
@@ -240,20 +241,24 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
                 continue
             x = max(0.0, 1.0 - r["limit"] * (1.0 - margin) / r["value"])
             if r.get("mode") is None:
-                need = np.maximum(need, x)
+                need = np.fmax(need, x)
             else:
                 names = [mode.name for mode in case.cycle.modes]
                 idx = names.index(r["mode"]) if r["mode"] in names else None
                 if idx is not None:
-                    need[idx] = max(need[idx], x)
-    return np.minimum(np.maximum(need + excess, own), case.dosing["ANR"])
+                    need[idx] = np.fmax(need[idx], x)
+    # a mode no NOx limit covers (e.g. below a load gate) keeps the case's ANR
+    anr = np.where(np.isnan(need), case.dosing["ANR"], need + excess)
+    return np.minimum(np.maximum(anr, own), case.dosing["ANR"])
 
 
 def size_case(case, *, progress=None) -> SizingResult:
     """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``).
 
     Where dosing is allowed and ``[sizing] choose_ANR`` is true (the default), the ANR of each
-    mode is chosen first (:func:`choose_anr`) and the case's ANR acts as the upper bound.
+    mode is chosen first (:func:`choose_anr`, excess ``ANR_excess``, default 0.05) and the case's
+    ANR acts as the upper bound; if dosing to the target cannot comply within the envelope, the
+    upper bound itself is sized.
 
     Diameter: the case's, or from ``face_velocity_m_s`` at the largest flow of the cycle, capped
     by ``max_diameter_mm``. With ``diameter_from_dp = true`` the diameter is then raised until
@@ -265,8 +270,24 @@ def size_case(case, *, progress=None) -> SizingResult:
     sz = case.sizing
     m = sz["design_margin"]
     if case.dosing["method"] != "none" and sz.get("choose_ANR", True):
-        anr = choose_anr(case, m, sz.get("ANR_excess", 0.02))
-        case = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
+        anr = choose_anr(case, m, sz.get("ANR_excess", 0.05))
+        if np.any(anr < case.dosing["ANR"] - 1e-12):
+            chosen = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
+            res = _size_with_diameter(chosen, progress)
+            if res.feasible:
+                res.seconds = time.perf_counter() - t0
+                return res
+            # dosing to the target is not enough within the envelope: try the case's upper bound
+            if progress:
+                progress("ANR at the case's upper bound")
+    res = _size_with_diameter(case, progress)
+    res.seconds = time.perf_counter() - t0
+    return res
+
+
+def _size_with_diameter(case, progress) -> SizingResult:
+    """Diameter rule, then the lengths (see :func:`size_case`)."""
+    sz = case.sizing
     D = case.train.bricks[0].diameter
     if sz.get("face_velocity_m_s"):
         D = _face_velocity_diameter(case, mode_inlets(case), sz["face_velocity_m_s"])
@@ -283,7 +304,6 @@ def size_case(case, *, progress=None) -> SizingResult:
             if progress:
                 progress(f"diameter {D * 1e3:.0f} mm for the back-pressure budget")
             res = _size_at(case, D, progress)
-    res.seconds = time.perf_counter() - t0
     return res
 
 
