@@ -5,7 +5,9 @@ section (ASC or oxidation bricks after the SCR) are sized separately, at the cas
 with a design margin on every limit:
 
 1. SCR length: the smallest one for which every NOx limit holds at every mode and over the cycle
-   (and the NH3 limits too when the train has no slip catalyst). The worst ratio value/limit falls
+   (and the NH3 limits too when the train has no slip catalyst). The search runs on a coarse grid
+   (``COARSE_GRID``) and its answer is confirmed on the case's own grid, and grown there if it
+   does not comply: the answer is the smallest to within the coarse grid's error (1-2 %). The worst ratio value/limit falls
    as the SCR grows, so the root of ``log(ratio)`` in the length is bracketed and found by
    the Illinois variant of regula falsi (Dowell & Jarratt, BIT 11 (1971) 168) to 0.5 %.
 2. Slip-catalyst length: likewise for the NH3 limits, with the SCR at its size.
@@ -207,6 +209,25 @@ def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step:
     return good, True, f_good
 
 
+def _grow(f, x0: float, hi: float, max_evals: int = 8) -> float:
+    """The answer of the coarse search, confirmed on the fine grid: ``x0`` if it complies there,
+    else grown by secant steps on log f (nearly linear in length) until it does."""
+    f0 = f(x0)
+    if f0 <= _ACCEPT or x0 >= hi:
+        return x0
+    x1 = min(x0 * 1.02, hi)
+    f1 = f(x1)
+    for _ in range(max_evals):
+        if f1 <= _ACCEPT or x1 >= hi:
+            return x1
+        g0, g1 = math.log(f0 / _ACCEPT), math.log(f1 / _ACCEPT)
+        slope = (g1 - g0) / (x1 - x0) if x1 != x0 else -1.0
+        step = -g1 / slope * 1.05 if slope < 0 else 0.02 * x1
+        x2 = min(max(x1 + step, x1 * 1.002), x1 * 1.25, hi)
+        x0, f0, x1, f1 = x1, f1, x2, f(x2)
+    return x1
+
+
 def _face_velocity_diameter(case, inlets, v: float) -> float:
     q = max(inl[3].volume_flow() for inl in inlets)     # actual m3/s at the brick inlet
     return math.sqrt(4.0 * q / (math.pi * v))
@@ -370,11 +391,19 @@ def _size_at(case, D: float, progress) -> SizingResult:
                 break
         return L_scr, L_asc
 
-    # search on a coarse grid (about 1-2 % from the case's grid), then polish on the case's grid
+    # search on a coarse grid (about 1-2 % from the case's grid), then confirm on the case's grid:
+    # the coarse answer is kept when it complies there, else grown until it does
     coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets)
     L_scr, L_asc = search(coarse, designs.L_scr0, designs.L_asc0, 2.0, 3)
-    if feasible:
-        L_scr, L_asc = search(designs, L_scr, L_asc, 1.02, 3)
+    for _ in range(3):
+        if not feasible:
+            break
+        L_scr = _grow(lambda L: _ratio_rows(designs(L, L_asc), nox, m)[0], L_scr, scr_hi)
+        if has_asc:
+            L_asc = _grow(lambda L: _ratio_rows(designs(L_scr, L), ("NH3",), m)[0], L_asc,
+                          asc_hi)
+        if _ratio_rows(designs(L_scr, L_asc), nox, m)[0] <= _ACCEPT:
+            break
     res = designs(L_scr, L_asc)
     train = designs.train(L_scr, L_asc)
     # every other limit, the back-pressure budget and the envelope, on the result
