@@ -122,7 +122,8 @@ def _size(args) -> int:
     from .output import SAFETY_NOTE, to_json
     from .sizing import size_case
     case = load_run_case(args.case, args.set)
-    res = _with_status(args, "sizing", lambda p: size_case(case, progress=p))
+    res = _with_status(args, "sizing", lambda p: size_case(
+        case, progress=p, curves=bool(args.report or args.json)))
     if args.report:
         from .report import write_size_report
         write_size_report(res, args.report)

@@ -167,8 +167,19 @@ def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step:
     fx = f(x)
     if fx <= _ACCEPT:
         good, f_good, bad, f_bad = x, fx, None, None
+        prev = None
         while x > lo * (1 + 1e-12):
-            x = max(x / step, lo)
+            x_next = max(x / step, lo)
+            if prev is not None and step > 1.1:
+                # log f ~ linear in x: aim just below the predicted root, but at most a factor
+                # ``step`` and at least 5 % down
+                (xa, fa), (xb, fb) = prev, (x, fx)
+                slope = (math.log(fb) - math.log(fa)) / (xb - xa) if xb != xa else 0.0
+                if slope < 0:
+                    root = xb + math.log(_ACCEPT / fb) / slope
+                    x_next = min(max(0.97 * root, x / step, lo), x * 0.95)
+            prev = (x, fx)
+            x = x_next
             fx = f(x)
             if fx > _ACCEPT:
                 bad, f_bad = x, fx
@@ -273,7 +284,7 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     return np.minimum(np.maximum(anr, own), case.dosing["ANR"])
 
 
-def size_case(case, *, progress=None) -> SizingResult:
+def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``).
 
     Where dosing is allowed and ``[sizing] choose_ANR`` is true (the default), the ANR of each
@@ -294,19 +305,19 @@ def size_case(case, *, progress=None) -> SizingResult:
         anr = choose_anr(case, m, sz.get("ANR_excess", 0.05))
         if np.any(anr < case.dosing["ANR"] - 1e-12):
             chosen = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
-            res = _size_with_diameter(chosen, progress)
+            res = _size_with_diameter(chosen, progress, curves)
             if res.feasible:
                 res.seconds = time.perf_counter() - t0
                 return res
             # dosing to the target is not enough within the envelope: try the case's upper bound
             if progress:
                 progress("ANR at the case's upper bound")
-    res = _size_with_diameter(case, progress)
+    res = _size_with_diameter(case, progress, curves)
     res.seconds = time.perf_counter() - t0
     return res
 
 
-def _size_with_diameter(case, progress) -> SizingResult:
+def _size_with_diameter(case, progress, curves: bool = True) -> SizingResult:
     """Diameter rule, then the lengths (see :func:`size_case`)."""
     sz = case.sizing
     D = case.train.bricks[0].diameter
@@ -314,7 +325,7 @@ def _size_with_diameter(case, progress) -> SizingResult:
         D = _face_velocity_diameter(case, mode_inlets(case), sz["face_velocity_m_s"])
     D_max = sz["max_diameter_mm"] / 1e3 if sz.get("max_diameter_mm") else math.inf
     D = min(D, D_max)
-    res = _size_at(case, D, progress)
+    res = _size_at(case, D, progress, curves)
     if sz.get("diameter_from_dp") and sz.get("dp_max_kPa"):
         budget = sz["dp_max_kPa"]
         for _ in range(3):
@@ -324,11 +335,11 @@ def _size_with_diameter(case, progress) -> SizingResult:
             D = min(D * (dp / (0.98 * budget)) ** 0.25, D_max)
             if progress:
                 progress(f"diameter {D * 1e3:.0f} mm for the back-pressure budget")
-            res = _size_at(case, D, progress)
+            res = _size_at(case, D, progress, curves)
     return res
 
 
-def _size_at(case, D: float, progress) -> SizingResult:
+def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult:
     """Size the SCR and slip-catalyst lengths of ``case`` at diameter ``D`` [m]."""
     t0 = time.perf_counter()
     sz = case.sizing
@@ -437,7 +448,7 @@ def _size_at(case, D: float, progress) -> SizingResult:
                         f"{max_total:.0f} mm")
     # sizing curves, on the search grid: the SCR swept with the slip catalyst at its size, and
     # the slip catalyst swept with the SCR at its size
-    for f_ in (0.6, 0.8, 1.0, 1.25, 1.6):
+    for f_ in ((0.6, 0.8, 1.0, 1.25, 1.6) if want_curves else ()):
         if progress:
             progress(f"sizing curves: x {f_}")
         coarse(L_scr * f_, L_asc)

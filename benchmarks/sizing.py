@@ -30,8 +30,12 @@ def main():
     print(f"one cycle evaluation ({len(r.modes)} modes, {len(case.train.bricks)} bricks, cold "
           f"starts): {t_run:.2f} s")
     t = time.perf_counter()
-    res = size_case(case)
+    res = size_case(case, curves=False)
     dt = time.perf_counter() - t
+    t = time.perf_counter()
+    with_curves = size_case(case)
+    print(f"with the sizing curves (report): {time.perf_counter() - t:.1f} s, "
+          f"{with_curves.evaluations} designs")
     print(f"sizing: {dt:.1f} s, {res.evaluations} designs, {res.train_solves} train solves "
           f"({dt / max(res.train_solves, 1) * 1e3:.0f} ms per train solve), feasible "
           f"{res.feasible}, total volume {res.train.volume * 1e3:.0f} L")
