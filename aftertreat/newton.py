@@ -213,9 +213,14 @@ def iterate(model, x0, st):
     tau = None                                 # None: plain Newton
     ref = np.inf                               # non-monotone reference for the line search
     best_res, best_x = np.inf, x0.copy()
+    known = None                               # (x, R) of the last accepted line-search point
     while its < budget:
         F_in, Tg_in = model.inflow(x)
-        R = model.residual(x, F_in, Tg_in)
+        if known is not None and known[0] is x:
+            R = known[1]                       # already evaluated by the line search
+        else:
+            R = model.residual(x, F_in, Tg_in)
+        known = None
         res = norm(model, R)
         if res < best_res:
             best_res, best_x = res, x.copy()
@@ -245,6 +250,7 @@ def iterate(model, x0, st):
             stalled = alpha < 1.0 / 64.0 and res_new > 0.5 * res
             if accepted and not stalled and newton_left >= 0:
                 x = x_new
+                known = (x, R_new)
                 continue
             if best_res < st.tol_accept or restarts >= 2 or st.max_ptc_steps <= 0:
                 break                          # converged to round-off, or out of options
@@ -260,12 +266,14 @@ def iterate(model, x0, st):
             tau *= 0.1
             continue
         x = x_new
+        known = (x, R_new)
         # switched evolution relaxation (Mulder & van Leer 1985): step grows as the residual falls
         tau *= min(max(res / max(res_new, 1e-300), 0.2), 10.0)
         if tau > 1e6:
             tau, newton_left, ref = None, st.max_newton, np.inf   # finish with Newton
-    F_in, Tg_in = model.inflow(x)
-    if norm(model, model.residual(x, F_in, Tg_in)) > best_res:
-        x = best_x                             # never return worse than the best state seen
+    if x is not best_x:
+        F_in, Tg_in = model.inflow(x)
+        if norm(model, model.residual(x, F_in, Tg_in)) > best_res:
+            x = best_x                         # never return worse than the best state seen
     return x, its
 
