@@ -102,7 +102,8 @@ def section_train(repeats):
         its = "/".join(str(b.iterations) for b in s.bricks)
         return f"iterations {its:>9s}  converged {s.converged}  residual {s.residual:.1e}"
     print(f"   cold start                    {t_cold * 1e3:8.1f} ms   {status(sol)}")
-    print(f"   warm start, same point        {t_warm_same * 1e3:8.1f} ms   {status(w1)}")
+    print(f"   same point again              {t_warm_same * 1e3:8.1f} ms   (solutions reused: "
+          "same bricks, same inlet)")
     print(f"   cold start, neighbour point   {t_cold_next * 1e3:8.1f} ms   {status(cold_next)}")
     print(f"   warm start, neighbour point   {t_warm_next * 1e3:8.1f} ms   {status(w2)}")
     print("   (neighbour: inlet +10 K and +5 % mass flow, warm-started from the first solution)")
