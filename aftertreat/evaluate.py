@@ -216,14 +216,16 @@ def mode_inlets(case) -> list[tuple]:
     return out
 
 
-def run_case(case, *, progress=None, train=None, guesses=None, inlets=None) -> CycleResult:
+def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
+             settings=None) -> CycleResult:
     """Evaluate every mode of ``case`` (a :class:`~aftertreat.cyclecase.RunCase`).
 
     ``progress(i, n, name)`` is called before each mode. Modes are solved in cycle order, each
     warm-started from the previous mode's solution, or from ``guesses[i]`` (a previous result's
     :class:`~aftertreat.train.TrainSolution` of the same mode on the same grid) when given.
     ``train`` replaces the case's train (what-ifs, sizing); ``inlets`` reuses
-    :func:`mode_inlets`.
+    :func:`mode_inlets`; ``settings`` (:class:`~aftertreat.reactor.SolverSettings`) loosens or
+    tightens the solver, e.g. for a coarse sizing search.
     """
     from . import limits
     t0 = time.perf_counter()
@@ -238,7 +240,7 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None) -> C
         power, eo, air_co2, inlet, reagent = inlets[i]
         g = guesses[i] if guesses is not None else guess
         try:
-            sol = train.solve(inlet, guess=g)
+            sol = train.solve(inlet, guess=g, settings=settings)
         except InputError as exc:
             raise InputError(f"mode '{mode.name}': {exc.expected}", key=exc.key, value=exc.value,
                              file=exc.file or case.file) from None

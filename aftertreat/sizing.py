@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
+from .reactor import SolverSettings
 from .evaluate import mode_inlets, run_case
 from .species import INDEX
 from .train import Train
@@ -109,8 +110,8 @@ def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
 class _Designs:
     """Evaluate designs (SCR length, slip-catalyst length) with caching and warm starts."""
 
-    def __init__(self, case, diameter, grid=None, inlets=None):
-        self.case, self.D, self.grid = case, diameter, grid
+    def __init__(self, case, diameter, grid=None, inlets=None, settings=None):
+        self.case, self.D, self.grid, self.settings = case, diameter, grid, settings
         self.inlets = mode_inlets(case) if inlets is None else inlets
         b = case.train.bricks
         self.scr = [i for i, x in enumerate(b) if x.role == "SCR"]
@@ -151,7 +152,7 @@ class _Designs:
             if prev.converged:
                 guesses = [m.solution for m in prev.modes]
         res = run_case(self.case, train=self.train(L_scr, L_asc), guesses=guesses,
-                       inlets=self.inlets)
+                       inlets=self.inlets, settings=self.settings)
         self.solves += len(res.modes)
         self.cache[key] = res
         return res
@@ -404,7 +405,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
 
     # search on a coarse grid (about 1-2 % from the case's grid), then confirm on the case's grid:
     # the coarse answer is kept when it complies there, else grown until it does
-    coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets)
+    coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets,
+                      settings=SolverSettings(tol=1e-9, tol_accept=1e-8))
     L_scr, L_asc = search(coarse, designs.L_scr0, designs.L_asc0, 2.0, 3)
     for _ in range(3):
         if not feasible:
