@@ -96,20 +96,25 @@ def _with_status(args, label: str, compute):
         return compute(lambda text: status.update(f"{label}: {text}"))
 
 
-def _run(args) -> int:
-    from .cyclecase import load_run_case
-    from .evaluate import run_case
+def _emit(args, result, write_report, print_human) -> None:
+    """The report folder (--report), then one JSON object (--json) or the human tables."""
     from .output import SAFETY_NOTE, to_json
-    case = load_run_case(args.case, args.set)
-    result = _with_status(args, "solving", lambda p: run_case(
-        case, progress=None if p is None else lambda i, n, name: p(f"mode {i + 1}/{n}: {name}")))
     if args.report:
-        from .report import write_report
         write_report(result, args.report)
     if args.json:
         print(to_json(result.to_json()))
     else:
-        _print_run(result, SAFETY_NOTE, args.report)
+        print_human(result, SAFETY_NOTE, args.report)
+
+
+def _run(args) -> int:
+    from .cyclecase import load_run_case
+    from .evaluate import run_case
+    case = load_run_case(args.case, args.set)
+    result = _with_status(args, "solving", lambda p: run_case(
+        case, progress=None if p is None else lambda i, n, name: p(f"mode {i + 1}/{n}: {name}")))
+    from .report import write_report
+    _emit(args, result, write_report, _print_run)
     if not result.converged:
         bad = [m.name for m in result.modes if not m.solution.converged]
         return _fail(1, f"solver did not converge in mode(s) {', '.join(bad)}; their numbers "
@@ -119,18 +124,12 @@ def _run(args) -> int:
 
 def _size(args) -> int:
     from .cyclecase import load_run_case
-    from .output import SAFETY_NOTE, to_json
     from .sizing import size_case
     case = load_run_case(args.case, args.set)
     res = _with_status(args, "sizing", lambda p: size_case(
         case, progress=p, curves=bool(args.report or args.json)))
-    if args.report:
-        from .report import write_size_report
-        write_size_report(res, args.report)
-    if args.json:
-        print(to_json(res.to_json()))
-    else:
-        _print_size(res, SAFETY_NOTE, args.report)
+    from .report import write_size_report
+    _emit(args, res, write_size_report, _print_size)
     if not res.run.converged:
         return _fail(1, "the solver did not converge at the sized design; its numbers are flagged")
     return 0
