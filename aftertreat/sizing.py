@@ -151,11 +151,43 @@ class _Designs:
             prev = self.cache[near]
             if prev.converged:
                 guesses = [m.solution for m in prev.modes]
+                if abs(near[0] - L_scr) > 1e-12:
+                    guesses = [self._remap(g, L_scr) for g in guesses]
         res = run_case(self.case, train=self.train(L_scr, L_asc), guesses=guesses,
                        inlets=self.inlets, settings=self.settings)
         self.solves += len(res.modes)
         self.cache[key] = res
         return res
+
+
+    def _remap(self, sol, L_scr: float):
+        """Warm start for a new SCR length from a solution at another one: in plug flow the
+        state at a distance z from the inlet does not depend on what lies downstream, so the
+        old SCR states are interpolated at the new cells' positions along the section (held at
+        the old outlet beyond it); other bricks keep their states."""
+        from types import SimpleNamespace
+        scr = [b for i, b in enumerate(sol.bricks) if i in self.scr]
+        z_old, x_old, z0 = [], [], 0.0
+        for b in scr:
+            z_old.append(z0 + b.z)
+            x_old.append(b.state)
+            z0 += b.brick.length
+        z_old = np.concatenate(z_old)
+        x_old = np.concatenate(x_old)
+        bricks, z0 = [], 0.0
+        for i, b in enumerate(sol.bricks):
+            if i not in self.scr:
+                bricks.append(SimpleNamespace(state=b.state, converged=False, brick=None,
+                                              inlet=None))
+                continue
+            L_new = L_scr * b.brick.length / sum(x.brick.length for x in scr)
+            n = b.state.shape[0]
+            z_new = z0 + (np.arange(n) + 0.5) * L_new / n
+            z0 += L_new
+            x = np.stack([np.interp(z_new, z_old, x_old[:, k]) for k in range(x_old.shape[1])],
+                         axis=1)
+            bricks.append(SimpleNamespace(state=x, converged=False, brick=None, inlet=None))
+        return SimpleNamespace(bricks=bricks)
 
 
 def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step: float = 2.0):
