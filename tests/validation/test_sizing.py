@@ -188,3 +188,22 @@ def test_diameter_raised_for_the_back_pressure_budget(tmp_path):
     assert res.train.bricks[0].diameter > base.train.bricks[0].diameter
     assert dp <= 0.02 * 1.001
     assert res.feasible
+
+
+def test_size_command_json_and_report(tmp_path, capsys):
+    """`aftertreat size CASE --json --report DIR`: exit 0, one aftertreat.size/1 object on
+    stdout, and the sizing report (size.json, curves CSV and PNG, the run report) in DIR."""
+    import json
+
+    from aftertreat.cli import main
+    from aftertreat.report import to_toml
+    case_file = tmp_path / "case.toml"
+    case_file.write_text(to_toml(case_data(tmp_path)))
+    out = tmp_path / "report"
+    assert main(["size", str(case_file), "--json", "--report", str(out)]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    assert obj["schema"] == "aftertreat.size/1" and obj["feasible"] is True
+    names = {p.name for p in out.iterdir()}
+    assert {"size.json", "sizing_curves.csv", "sizing_curves.png", "margins.csv",
+            "summary.json", "SAFETY.txt"} <= names
+    assert (out / "sizing_curves.png").read_bytes()[:4] == b"\x89PNG"
