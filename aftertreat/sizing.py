@@ -123,6 +123,7 @@ class _Designs:
         self.L_asc0 = sum(b[i].length for i in self.asc)
         self.cache: dict[tuple[float, float], object] = {}
         self.solves = 0
+        self.seed = None                # warm-start guesses for the first design (per mode)
 
     def train(self, L_scr: float, L_asc: float) -> Train:
         b = self.case.train.bricks
@@ -144,7 +145,7 @@ class _Designs:
         key = (round(L_scr, 9), round(L_asc, 9))
         if key in self.cache:
             return self.cache[key]
-        guesses = None
+        guesses = self.seed if not self.cache else None
         if self.cache:                  # warm start from the nearest design solved
             near = min(self.cache, key=lambda k: abs(math.log(k[0] / L_scr))
                        + abs(math.log(max(k[1], 1e-9) / max(L_asc, 1e-9))))
@@ -251,6 +252,50 @@ def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step:
                 f_good = _ACCEPT * math.sqrt(max(f_good, 1e-300) / _ACCEPT)
             side = -1
     return good, True, f_good
+
+
+def _refine_guesses(res, train) -> list:
+    """Coarse-grid states interpolated along each brick onto ``train``'s cells, as warm-start
+    guesses. A brick whose washcoat nodes differ keeps a state of the wrong shape, which the
+    solver ignores (it starts that brick afresh)."""
+    from types import SimpleNamespace
+    out = []
+    for m in res.modes:
+        bricks = []
+        for sol, b in zip(m.solution.bricks, train.bricks):
+            xc = sol.state
+            nc, nf = xc.shape[0], int(b.cells)
+            zc = (np.arange(nc) + 0.5) / nc
+            zf = (np.arange(nf) + 0.5) / nf
+            xf = np.stack([np.interp(zf, zc, xc[:, k]) for k in range(xc.shape[1])], axis=1)
+            if sol.brick.nodes_per_layer != b.nodes_per_layer and b.washcoat == "resolved":
+                xf = _renode(xf, sol.brick, b, len(sol.film_species))
+            bricks.append(SimpleNamespace(state=xf, converged=False, brick=None, inlet=None))
+        out.append(SimpleNamespace(bricks=bricks))
+    return out
+
+
+def _renode(x, old, new, nf: int):
+    """Map the washcoat-node unknowns of a resolved brick from ``old.nodes_per_layer`` to
+    ``new.nodes_per_layer`` nodes per layer, interpolating in depth within each layer."""
+    from .reactor import NSP, _node_shares
+    n_layers = len(new.catalysts)
+    no, nn = int(old.nodes_per_layer), int(new.nodes_per_layer)
+    ns_total = (x.shape[1] - NSP - 2 - n_layers * no * nf) // (n_layers * no)
+    ic = NSP + 2
+    cold = x[:, ic: ic + n_layers * no * nf].reshape(len(x), n_layers, no, nf)
+    thold = x[:, ic + n_layers * no * nf:].reshape(len(x), n_layers, no, ns_total)
+    do = np.cumsum(_node_shares(no)) - _node_shares(no) / 2          # node centres, 0..1
+    dn = np.cumsum(_node_shares(nn)) - _node_shares(nn) / 2
+    cnew = np.empty((len(x), n_layers, nn, nf))
+    thnew = np.empty((len(x), n_layers, nn, ns_total))
+    for k in range(n_layers):
+        for j in range(nf):
+            cnew[:, k, :, j] = np.array([np.interp(dn, do, row) for row in cold[:, k, :, j]])
+        for j in range(ns_total):
+            thnew[:, k, :, j] = np.array([np.interp(dn, do, row) for row in thold[:, k, :, j]])
+    return np.concatenate([x[:, :ic], cnew.reshape(len(x), -1), thnew.reshape(len(x), -1)],
+                          axis=1)
 
 
 def _grow(f, x0: float, hi: float, max_evals: int = 8) -> float:
@@ -440,6 +485,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets,
                       settings=SolverSettings(tol=1e-9, tol_accept=1e-8))
     L_scr, L_asc = search(coarse, designs.L_scr0, designs.L_asc0, 2.0, 3)
+    if feasible:    # seed the case's grid with the coarse states (bricks whose layout matches)
+        designs.seed = _refine_guesses(coarse(L_scr, L_asc), designs.train(L_scr, L_asc))
     for _ in range(3):
         if not feasible:
             break
