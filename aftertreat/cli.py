@@ -171,10 +171,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
     for col in ("limit", "mode", "value", "limit", "unit", "margin %"):
         L.add_column(col, justify="right" if col in ("value", "limit", "margin %") else "left")
     for r in res.margins:
-        name = r["name"]
-        if r.get("mode") and name.endswith(f", mode {r['mode']}"):
-            name = name[: -len(f", mode {r['mode']}")]
-        L.add_row(name, r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]), r["unit"],
+        L.add_row(_limit_name(r), r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]), r["unit"],
                   _num(r["margin_pct"]))
     con.print(L)
     con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
@@ -220,10 +217,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
         for col in ("limit", "mode", "value", "limit", "unit", "result"):
             L.add_column(col, justify="right" if col in ("value", "limit") else "left")
         for r in result.limits:
-            name = r["name"]
-            if r.get("mode") and name.endswith(f", mode {r['mode']}"):
-                name = name[: -len(f", mode {r['mode']}")]
-            L.add_row(name + (" *" if r.get("confidence") == "from memory" else ""),
+            L.add_row(_limit_name(r) + (" *" if r.get("confidence") == "from memory" else ""),
                       r.get("mode") or "cycle", _num(r.get("value")), _num(r.get("limit")),
                       r["unit"], "[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
         con.print(L)
@@ -240,6 +234,12 @@ def _print_run(result, safety: str, report: str | None) -> None:
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
+
+
+def _limit_name(r: dict) -> str:
+    """A limit row's name without the ', mode X' suffix (the table has a mode column)."""
+    name, suffix = r["name"], f", mode {r.get('mode')}"
+    return name[: -len(suffix)] if r.get("mode") and name.endswith(suffix) else name
 
 
 def _num(v) -> str:

@@ -41,9 +41,9 @@ class ModeResult:
 
     @property
     def anr(self) -> float:
-        s = self.inlet
-        nox = s.F[INDEX["NO"]] + s.F[INDEX["NO2"]]
-        return float(s.F[INDEX["NH3"]] / nox) if nox > 0 else float("nan")
+        """NH3/NOx at the first brick (:func:`aftertreat.dosing.anr`)."""
+        from .dosing import anr
+        return anr(self.inlet)
 
     def element_balance_error(self) -> float:
         """max |atoms(outlet) - atoms(engine-out + reagent)| / max atoms in [-]."""

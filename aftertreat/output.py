@@ -11,6 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .dosing import anr
+
 from .species import INDEX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
@@ -49,16 +51,10 @@ def point_dict(case_title: str, sol: TrainSolution) -> dict:
             "T_in_C": sol.inlet.T - 273.15, "T_out_C": sol.outlet.T - 273.15,
             "GHSV_per_h": sol.ghsv_per_h(), "GHSV_normal_conditions": "0 C, 101.325 kPa",
             "dp_kPa": sol.dp_Pa / 1e3,
-            "ANR": _anr(sol.inlet), "NOx_conversion": sol.nox_conversion(),
+            "ANR": anr(sol.inlet), "NOx_conversion": sol.nox_conversion(),
             "converged": sol.converged, "element_balance_error": sol.element_balance_error,
             "inlet": stream_dict(sol.inlet), "outlet": stream_dict(sol.outlet),
             "bricks": bricks, "warnings": sol.warnings, "solve_s": sol.seconds}
-
-
-def _anr(s: Stream) -> float:
-    """NH3 / NOx molar ratio of a stream (NaN without NOx)."""
-    nox = s.F[INDEX["NO"]] + s.F[INDEX["NO2"]]
-    return float(s.F[INDEX["NH3"]] / nox) if nox > 0 else float("nan")
 
 
 def _clean(o):

@@ -31,7 +31,6 @@ import numpy as np
 from .errors import InputError
 from .reactor import SolverSettings
 from .evaluate import mode_inlets, run_case
-from .species import INDEX
 from .train import Train
 
 __all__ = ["SizingResult", "size_case", "SIZING_TOL"]
@@ -332,7 +331,7 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     than the engine's own NH3 already gives (ANR counts engine-out NH3). A mode that no NOx limit
     covers (below a load gate, say) keeps the case's ANR.
     """
-    from . import limits as lm
+    from . import dosing, limits as lm
     from .evaluate import engine_out_stream, mode_emissions
     n = case.n_modes
     heads, own = [], np.zeros(n)
@@ -340,9 +339,8 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
         power, eo, air_co2 = engine_out_stream(case, i)
         heads.append(mode_emissions(mode.name, mode.weight, power,
                                     bool(getattr(mode, "cap_exempt", False)), eo, air_co2))
-        F = eo.F
-        nox = F[INDEX["NO"]] + F[INDEX["NO2"]]
-        own[i] = F[INDEX["NH3"]] / nox if nox > 0 else 0.0
+        # the engine's own ANR; without NOx any ANR doses nothing, so count it as 0
+        own[i] = np.nan_to_num(dosing.anr(eo), nan=0.0, posinf=0.0)
     need = np.full(n, np.nan)          # NaN: no NOx limit applies to the mode
     for ls in case.limit_sets:
         for r in lm.evaluate(ls, heads, rated_speed_rpm=case.engine.rated_speed_rpm,

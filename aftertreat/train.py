@@ -68,6 +68,13 @@ class Train:
                              seconds=time.perf_counter() - t0)
 
 
+def ghsv_per_h(stream: Stream, volume: float, T_normal: float = T_NORMAL_K,
+               p_normal: float = P_NORMAL_PA) -> float:
+    """GHSV [1/h]: volumetric flow at the normal conditions (T_normal [K], p_normal [Pa]) over
+    the brick volume [m^3], walls included (trade convention)."""
+    return stream.total * R_GAS * T_normal / p_normal / volume * 3600.0
+
+
 def _same_brick(a: Brick, b: Brick) -> bool:
     """True when two bricks define the same steady problem (same catalyst objects)."""
     if a is b:
@@ -132,8 +139,7 @@ class TrainSolution:
 
     def ghsv_per_h(self, T_normal: float = T_NORMAL_K, p_normal: float = P_NORMAL_PA) -> float:
         """Gas hourly space velocity over the whole train [1/h], normal conditions given [K, Pa]."""
-        q_n = self.inlet.total * R_GAS * T_normal / p_normal
-        return q_n / self.train.volume * 3600.0
+        return ghsv_per_h(self.inlet, self.train.volume, T_normal, p_normal)
 
     # ---- tables --------------------------------------------------------------------------------
     def brick_table(self):
@@ -146,7 +152,7 @@ class TrainSolution:
                    "catalysts": "+".join(c.key for c in b.catalysts),
                    "volume_L": b.volume * 1e3, "length_mm": b.length * 1e3,
                    "diameter_mm": b.diameter * 1e3,
-                   "GHSV_per_h": s.inlet.total * R_GAS * T_NORMAL_K / P_NORMAL_PA / b.volume * 3600,
+                   "GHSV_per_h": ghsv_per_h(s.inlet, b.volume),
                    "T_in_C": s.inlet.T - 273.15, "T_out_C": s.outlet.T - 273.15,
                    "dp_kPa": s.dp.total_Pa / 1e3}
             for sp in ("NO", "NO2", "NH3", "N2O"):
