@@ -91,19 +91,19 @@ def _design_value(res, r) -> float:
     return float(r["value"])
 
 
-def _ratio_rows(res, quantities: tuple[str, ...], margin: float):
-    """Worst value/(limit x (1 - margin)) over the limit rows whose quantity starts with one of
-    ``quantities``; and the rows in that group."""
-    rows = [r for r in res.limits if r["quantity"].startswith(quantities)
-            and r.get("limit") is not None]
-    if not rows:
-        return 0.0, []
-    ratios = []
-    for r in rows:
-        v = _design_value(res, r)
-        ratios.append(v / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
+def _ratios(res, quantities: tuple[str, ...], margin: float):
+    """(row, value/(limit x (1 - margin))) for the applicable limit rows whose quantity starts
+    with one of ``quantities``."""
+    for r in res.limits:
+        if r["quantity"].startswith(quantities) and r.get("limit") is not None:
+            v = _design_value(res, r)
+            yield r, (v / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
                       (0.0 if v <= 0 else math.inf))
-    return max(ratios), rows
+
+
+def _worst(res, quantities: tuple[str, ...], margin: float) -> float:
+    """The worst value/(limit with margin) of a group of limits (0 if none applies)."""
+    return max((q for _, q in _ratios(res, quantities, margin)), default=0.0)
 
 
 class _Designs:
@@ -446,12 +446,12 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         def f_scr(L):
             if progress:
                 progress(f"SCR {L * 1e3:.0f} mm")
-            return _ratio_rows(designs(L, L_asc), nox, m)[0]
+            return _worst(designs(L, L_asc), nox, m)
 
         def f_asc(L):
             if progress:
                 progress(f"slip catalyst {L * 1e3:.0f} mm")
-            return _ratio_rows(designs(L_scr, L), ("NH3",), m)[0]
+            return _worst(designs(L_scr, L), ("NH3",), m)
 
         for k in range(passes):
             step = first_step if k == 0 else 1.05   # later passes start next to the answer
@@ -488,11 +488,11 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     for _ in range(3):
         if not feasible:
             break
-        L_scr = _grow(lambda L: _ratio_rows(designs(L, L_asc), nox, m)[0], L_scr, scr_hi)
+        L_scr = _grow(lambda L: _worst(designs(L, L_asc), nox, m), L_scr, scr_hi)
         if has_asc:
-            L_asc = _grow(lambda L: _ratio_rows(designs(L_scr, L), ("NH3",), m)[0], L_asc,
+            L_asc = _grow(lambda L: _worst(designs(L_scr, L), ("NH3",), m), L_asc,
                           asc_hi)
-        if _ratio_rows(designs(L_scr, L_asc), nox, m)[0] <= _ACCEPT:
+        if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT:
             break
     res = designs(L_scr, L_asc)
     train = designs.train(L_scr, L_asc)
@@ -548,9 +548,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
 
 def _failing(res, quantities, margin) -> list[str]:
     out = []
-    for r in res.limits:
-        if r["quantity"].startswith(quantities) and r.get("limit") is not None and \
-                _design_value(res, r) > r["limit"] * (1.0 - margin):
+    for r, q in _ratios(res, quantities, margin):
+        if q > 1.0:
             where = f" at mode {r['mode']}" if r.get("mode") else ""
             out.append(f"{r['name']}{where}: {_design_value(res, r):.3g} {r['unit']} against "
                        f"{r['limit'] * (1.0 - margin):.3g} with the design margin")
@@ -559,9 +558,7 @@ def _failing(res, quantities, margin) -> list[str]:
 
 def _suggest(res, quantities, margin, case) -> list[str]:
     """What would change an infeasible answer, by the kind of limit that fails."""
-    kinds = {r["quantity"].split("_")[0] for r in res.limits
-             if r["quantity"].startswith(quantities) and r.get("limit") is not None
-             and _design_value(res, r) > r["limit"] * (1.0 - margin)}
+    kinds = {r["quantity"].split("_")[0] for r, q in _ratios(res, quantities, margin) if q > 1.0}
     out = []
     if "NOx" in kinds:
         out += ["a more active catalyst or a higher cell density",
@@ -593,7 +590,7 @@ def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> lis
                      "total_volume_L": t.volume * 1e3, "NOx_g_kWh": c["NOx_g_kWh"],
                      "NH3_slip_ppmvd_max": c["NH3_slip_ppmvd_max"], "N2O_g_kWh": c["N2O_g_kWh"],
                      "dp_kPa_max": max(m.solution.dp_Pa for m in res.modes) / 1e3,
-                     "NOx_ratio": _ratio_rows(res, ("NOx",), margin)[0],
-                     "NH3_ratio": _ratio_rows(res, ("NH3",), margin)[0],
+                     "NOx_ratio": _worst(res, ("NOx",), margin),
+                     "NH3_ratio": _worst(res, ("NH3",), margin),
                      "converged": res.converged})
     return sorted(rows, key=lambda r: (r["SCR_length_mm"], r["ASC_length_mm"]))
