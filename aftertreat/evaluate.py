@@ -14,7 +14,7 @@ import numpy as np
 
 from . import emissions
 from .errors import InputError
-from .output import stream_dict
+from .output import brick_dict, stream_dict
 from .species import ELEMENT_MATRIX, INDEX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
@@ -148,10 +148,7 @@ class CycleResult:
                 "engine_out": stream_dict(m.engine_out),
                 "dosed": _reagent_dict(m.reagent),
                 "outlet": stream_dict(m.outlet),
-                "bricks": [{"name": b.brick.name, "role": b.brick.role,
-                            "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
-                            "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
-                            "outlet": stream_dict(b.outlet)} for b in s.bricks],
+                "bricks": [brick_dict(b) for b in s.bricks],
                 "warnings": s.warnings})
         return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
                 "cycle_name": self.case.cycle.name, "modes": modes, "cycle": self.cycle,

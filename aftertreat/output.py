@@ -17,7 +17,7 @@ from .species import INDEX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
 
-__all__ = ["stream_dict", "point_dict", "write_atomic", "SAFETY_NOTE"]
+__all__ = ["stream_dict", "brick_dict", "point_dict", "write_atomic", "SAFETY_NOTE"]
 
 #: Shown wherever results could guide a real installation.
 SAFETY_NOTE = (
@@ -36,16 +36,19 @@ def stream_dict(s: Stream) -> dict:
             "ppmvd": s.ppm_dry()}
 
 
+def brick_dict(b) -> dict:
+    """One brick of a solved train (a :class:`~aftertreat.reactor.BrickSolution`) for JSON."""
+    return {"name": b.brick.name, "role": b.brick.role,
+            "catalysts": [c.key for c in b.brick.catalysts],
+            "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
+            "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
+            "residual": b.residual, "iterations": b.iterations,
+            "outlet": stream_dict(b.outlet)}
+
+
 def point_dict(case_title: str, sol: TrainSolution) -> dict:
     """The ``aftertreat.point/1`` object: one operating point of a train."""
-    bricks = []
-    for b in sol.bricks:
-        bricks.append({"name": b.brick.name, "role": b.brick.role,
-                       "catalysts": [c.key for c in b.brick.catalysts],
-                       "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
-                       "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
-                       "residual": b.residual, "iterations": b.iterations,
-                       "outlet": stream_dict(b.outlet)})
+    bricks = [brick_dict(b) for b in sol.bricks]
     return {"schema": "aftertreat.point/1", "case": case_title,
             "exhaust_kg_h": sol.inlet.mass_flow * 3600.0,
             "T_in_C": sol.inlet.T - 273.15, "T_out_C": sol.outlet.T - 273.15,
