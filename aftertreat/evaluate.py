@@ -45,6 +45,15 @@ class ModeResult:
         from .dosing import anr
         return anr(self.inlet)
 
+    def summary(self) -> dict:
+        """The per-mode figures shared by the table and the JSON object (units in the keys)."""
+        s = self.solution
+        return {"weight": self.weight, "power_kW": self.power_kW,
+                "exhaust_kg_h": self.inlet.mass_flow * 3600.0, "T_in_C": self.inlet.T - 273.15,
+                "T_out_C": self.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
+                "dp_kPa": s.dp_Pa / 1e3, "ANR": self.anr, "NOx_conversion": s.nox_conversion(),
+                "converged": s.converged, "element_balance_error": self.element_balance_error()}
+
     def element_balance_error(self) -> float:
         """max |atoms(outlet) - atoms(engine-out + reagent)| / max atoms in [-]."""
         a_in = ELEMENT_MATRIX @ (self.engine_out.F + self.reagent)
@@ -107,12 +116,7 @@ class CycleResult:
         rows = []
         for m in self.modes:
             e = m.emissions()
-            s = m.solution
-            rows.append({"mode": m.name, "weight": m.weight, "power_kW": m.power_kW,
-                         "exhaust_kg_h": m.inlet.mass_flow * 3600, "T_in_C": m.inlet.T - 273.15,
-                         "T_out_C": m.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
-                         "dp_kPa": s.dp_Pa / 1e3, "ANR": m.anr,
-                         "NOx_conversion": s.nox_conversion(),
+            rows.append({"mode": m.name, **m.summary(),
                          "NOx_in_ppm_wet": m.inlet.ppm("NO") + m.inlet.ppm("NO2"),
                          "NOx_out_ppm_wet": m.outlet.ppm("NO") + m.outlet.ppm("NO2"),
                          "NH3_in_ppm_wet": m.inlet.ppm("NH3"),
@@ -121,9 +125,7 @@ class CycleResult:
                          "NOx_out_ppmvd": e["ppmvd"]["NOx"], "NH3_out_ppmvd": e["ppmvd"]["NH3"],
                          "O2_dry_pct": e["O2_dry_pct"], "H2O_pct": e["H2O_pct"],
                          "NOx_g_h": e["NOx_g_h"], "N2O_g_h": e["N2O_g_h"],
-                         "NH3_g_h": e["NH3_g_h"], "CO2_g_h": e["CO2_g_h"],
-                         "converged": s.converged,
-                         "element_balance_error": m.element_balance_error()})
+                         "NH3_g_h": e["NH3_g_h"], "CO2_g_h": e["CO2_g_h"]})
         return pd.DataFrame(rows)
 
     def limit_table(self):
@@ -140,11 +142,7 @@ class CycleResult:
         for m in self.modes:
             s = m.solution
             modes.append({
-                "name": m.name, "weight": m.weight, "power_kW": m.power_kW,
-                "exhaust_kg_h": m.inlet.mass_flow * 3600.0, "T_in_C": m.inlet.T - 273.15,
-                "T_out_C": m.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
-                "dp_kPa": s.dp_Pa / 1e3, "ANR": m.anr, "NOx_conversion": s.nox_conversion(),
-                "converged": s.converged, "element_balance_error": m.element_balance_error(),
+                "name": m.name, **m.summary(),
                 "engine_out": stream_dict(m.engine_out),
                 "dosed": _reagent_dict(m.reagent),
                 "outlet": stream_dict(m.outlet),
