@@ -197,6 +197,8 @@ def _march(model, x0, st):
 def iterate(model, x0, st):
     """Newton with backtracking; on stagnation, pseudo-transient continuation from the start.
 
+    Returns the final state, the number of linear solves and its scaled residual norm.
+
     Pseudo-transient continuation (Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508) advances
     coverage and solid temperature by implicit Euler steps whose size grows as the residual falls
     (switched evolution relaxation), then hands over to Newton. The total number of linear solves
@@ -213,7 +215,7 @@ def iterate(model, x0, st):
     tau = None                                 # None: plain Newton
     ref = np.inf                               # non-monotone reference for the line search
     best_res, best_x = np.inf, x0.copy()
-    known = None                               # (x, R) of the last accepted line-search point
+    known = current = None                               # (x, R) of the last accepted line-search point
     while its < budget:
         F_in, Tg_in = model.inflow(x)
         if known is not None and known[0] is x:
@@ -222,6 +224,7 @@ def iterate(model, x0, st):
             R = model.residual(x, F_in, Tg_in)
         known = None
         res = norm(model, R)
+        current = (x, res)                     # the state the loop has evaluated last
         if res < best_res:
             best_res, best_x = res, x.copy()
         if res < st.tol:
@@ -271,9 +274,13 @@ def iterate(model, x0, st):
         tau *= min(max(res / max(res_new, 1e-300), 0.2), 10.0)
         if tau > 1e6:
             tau, newton_left, ref = None, st.max_newton, np.inf   # finish with Newton
-    if x is not best_x:
-        F_in, Tg_in = model.inflow(x)
-        if norm(model, model.residual(x, F_in, Tg_in)) > best_res:
-            x = best_x                         # never return worse than the best state seen
-    return x, its
+    if current is not None and current[0] is x:
+        res_x = current[1]
+    elif known is not None and known[0] is x:
+        res_x = norm(model, known[1])
+    else:
+        res_x = norm(model, model.residual(x, *model.inflow(x)))
+    if res_x > best_res:
+        return best_x, its, best_res           # never return worse than the best state seen
+    return x, its, res_x
 
