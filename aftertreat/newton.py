@@ -16,16 +16,29 @@ equations. J. Comput. Phys. 59, 232-246 (switched evolution relaxation).
 from __future__ import annotations
 
 import numpy as np
+import scipy.linalg
 
 from .species import SPECIES
 
 NSP = len(SPECIES)
 
-__all__ = ["iterate", "norm", "newton_step"]
+__all__ = ["iterate", "norm", "newton_step", "jacobian", "apply_jacobian"]
+
+
+#: Diagonal blocks up to this size are inverted outright (cheapest to apply in chord steps);
+#: larger ones are LU-factored (an explicit inverse of a 92 x 92 block costs 3x its LU).
+_INVERT_UP_TO = 24
 
 
 def newton_step(model, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
-    """Solve J dx = -R (plus an optional pseudo-time diagonal) for the block-bidiagonal J.
+    """Solve J dx = -R (plus an optional pseudo-time diagonal) for the block-bidiagonal J."""
+    return apply_jacobian(model, jacobian(model, x, R, F_in, Tg_in, fd_step, ptc_diag), R)
+
+
+def jacobian(model, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
+    """The block-bidiagonal Jacobian at ``x``, factored for :func:`apply_jacobian`:
+    ``(B^-1, B^-1 C)`` per cell, B the diagonal block and C the coupling to the upstream cell's
+    gas unknowns.
 
     The Jacobian is formed by forward differences in one vectorised residual call holding every
     perturbed copy of the brick: one copy per gas unknown (flows, temperatures), one per inflow
@@ -101,12 +114,25 @@ def newton_step(model, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
         # implicit Euler on dx/dt = R (coverage and solid-temperature rows are written so that
         # the residual is the rate of change): (J - I/tau) dx = -R
         B[:, np.arange(nv), np.arange(nv)] -= ptc_diag
-    sol = np.linalg.solve(B, np.concatenate([-R[:, :, None], C], axis=2))
-    a, G = sol[:, :, 0], sol[:, :, 1:]                     # B^-1 (-R), B^-1 C   [n, nv, ng]
+    if nv <= _INVERT_UP_TO:             # small blocks: explicit inverses, applied by one einsum
+        Binv = np.linalg.inv(B)
+        return Binv, None, Binv @ C
+    lu = scipy.linalg.lu_factor(B, check_finite=False)      # batched over cells
+    return None, lu, scipy.linalg.lu_solve(lu, C, check_finite=False)
+
+
+def apply_jacobian(model, factors, R):
+    """dx solving J dx = -R with the factors of :func:`jacobian`: each cell's block solve, then
+    the recurrence dx_j = B_j^-1 (-R_j) - B_j^-1 C_j dx_{j-1}[gas] down the brick."""
+    Binv, lu, G = factors
+    if Binv is not None:
+        a = -np.einsum("nij,nj->ni", Binv, R)
+    else:
+        a = -scipy.linalg.lu_solve(lu, R[:, :, None], check_finite=False)[:, :, 0]
     gas = np.r_[np.arange(NSP), model.iTg]
-    dx = np.empty((n, nv))
+    dx = np.empty_like(a)
     dx[0] = a[0]
-    for j in range(1, n):
+    for j in range(1, len(a)):
         dx[j] = a[j] - G[j] @ dx[j - 1, gas]
     return dx
 
@@ -194,10 +220,23 @@ def _march(model, x0, st):
     return x
 
 
-def iterate(model, x0, st):
+#: A chord step (old Jacobian) is accepted when it cuts the residual norm below this fraction...
+CHORD_ACCEPT = 0.5
+#: ...and the Jacobian is kept for the next step while the cut is below this one.
+CHORD_KEEP = 0.1
+
+
+def iterate(model, x0, st, J0=None):
     """Newton with backtracking; on stagnation, pseudo-transient continuation from the start.
 
-    Returns the final state, the number of linear solves and its scaled residual norm.
+    Returns the final state, the number of Jacobians formed, its scaled residual norm and the
+    last factored Jacobian (see :func:`jacobian`). ``J0``, a Jacobian of a neighbouring problem,
+    is used for chord steps until it contracts too slowly.
+
+    Chord steps (Newton with an old Jacobian, e.g. Kelley 2003, "Solving Nonlinear Equations
+    with Newton's Method", SIAM, ch. 1.4) cost one residual and one application of the stored
+    factors; a step that does not halve the residual norm is discarded and the Jacobian
+    refreshed.
 
     Pseudo-transient continuation (Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508) advances
     coverage and solid temperature by implicit Euler steps whose size grows as the residual falls
@@ -215,7 +254,9 @@ def iterate(model, x0, st):
     tau = None                                 # None: plain Newton
     ref = np.inf                               # non-monotone reference for the line search
     best_res, best_x = np.inf, x0.copy()
-    known = current = None                               # (x, R) of the last accepted line-search point
+    known = current = None                 # (x, R) of the last accepted line-search point
+    J = J0                                 # factored Jacobian kept for chord steps
+    chord_left = st.max_chord
     while its < budget:
         F_in, Tg_in = model.inflow(x)
         if known is not None and known[0] is x:
@@ -233,11 +274,28 @@ def iterate(model, x0, st):
         # plain decrease, which breaks the two-cycles that kinks in the model can cause
         ref = (min(ref, 10.0 * res) if np.isfinite(ref) else 10.0 * res) \
             if newton_left > st.max_newton - 4 else res
+        if J is not None and tau is None and chord_left > 0:
+            # chord step: the Jacobian of an earlier iterate, kept while it contracts well
+            chord_left -= 1
+            x_new = model.clip(x + apply_jacobian(model, J, R))
+            R_new = model.residual(x_new, *model.inflow(x_new))
+            res_new = norm(model, R_new)
+            if np.isfinite(res_new) and res_new < CHORD_ACCEPT * res:
+                if res_new > CHORD_KEEP * res:
+                    J = None                   # slow contraction: a fresh Jacobian next time
+                x = x_new
+                known = (x, R_new)
+                continue
+            J, known = None, (x, R)            # refresh at x and take a Newton step from it
+            continue
         diag = None if tau is None else diag_mask / tau
         try:
-            dx = newton_step(model, x, R, F_in, Tg_in, st.fd_step, diag)
+            J = jacobian(model, x, R, F_in, Tg_in, st.fd_step, diag)
+            dx = apply_jacobian(model, J, R)
         except np.linalg.LinAlgError:
-            dx = np.full_like(x, np.nan)
+            J, dx = None, np.full_like(x, np.nan)
+        if tau is not None:
+            J = None                           # a pseudo-time Jacobian is not kept for chords
         its += 1
         alpha, accepted, res_new = 1.0, False, np.inf
         for _ in range(10):
@@ -261,9 +319,10 @@ def iterate(model, x0, st):
             if restarts == 1:
                 # Newton stalled: solve cell by cell from the inlet, then polish with Newton
                 x, newton_left, ref = _march(model, model.initial_state(), st), st.max_newton, np.inf
+                J = None
                 continue
             # still stalled: restart from the crude state with pseudo-time stepping
-            x, tau, ref = model.initial_state(), st.tau0, np.inf
+            x, tau, ref, J = model.initial_state(), st.tau0, np.inf, None
             continue
         if not np.isfinite(res_new):
             tau *= 0.1
@@ -281,6 +340,6 @@ def iterate(model, x0, st):
     else:
         res_x = norm(model, model.residual(x, *model.inflow(x)))
     if res_x > best_res:
-        return best_x, its, best_res           # never return worse than the best state seen
-    return x, its, res_x
+        return best_x, its, best_res, J        # never return worse than the best state seen
+    return x, its, res_x, J
 

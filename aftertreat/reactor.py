@@ -72,6 +72,8 @@ class SolverSettings:
     #: a Newton iteration that stalls below this (round-off on some rows) counts as converged
     tol_accept: float = 1e-10
     max_newton: int = 40
+    #: steps with a kept (older) Jacobian; 0 gives plain Newton
+    max_chord: int = 60
     max_ptc_steps: int = 200
     tau0: float = 1e-3           # first pseudo-time step [s]
     fd_step: float = 1e-7
@@ -91,7 +93,6 @@ class BrickSolution:
     c_surface: np.ndarray              # [ncell, nnode, nspecies-in-rates] [mol/m^3]
     film_species: list[str]
     node_layer: np.ndarray             # [nnode] layer index of each washcoat node
-    extents: list[np.ndarray]          # per layer [ncell, nrxn] reaction extents [mol/s]
     dp: transport.PressureDrop
     converged: bool
     residual: float
@@ -100,6 +101,18 @@ class BrickSolution:
     seconds: float
     notes: list[str] = field(default_factory=list)
     state: np.ndarray | None = None    # solver unknowns, for warm starts
+    #: the solver's last factored Jacobian: a warm start's first chord steps use it
+    factors: tuple | None = field(default=None, repr=False, compare=False)
+    model: object = field(default=None, repr=False, compare=False)
+
+    def reaction_extents(self) -> list[np.ndarray]:
+        """Reaction extents per layer [ncell, nrxn] in mol/s (rates x catalyst volume),
+        computed on demand from the solved state."""
+        m = self.model
+        rates, *_ = m.layer_rates(self.state, *m.inflow(self.state))
+        vol = m.A * m.dz
+        return [(vol * m.node_frac[m.layer_nodes[k]][None, :, None] * rates[k]).sum(axis=1)
+                for k in range(len(m.mechs))]
 
     def ppm_profile(self, species: str) -> np.ndarray:
         """Wet ppm of ``species`` at every cell outlet."""
@@ -188,7 +201,7 @@ class _BrickModel:
         self.a = sub.gsa
         self.d_h = sub.d_h
         self.A_ht = self.a * self.A * self.dz           # film area per cell [m^2]
-        self.gas = GasProperties.from_flows(inlet.F, p=inlet.p)
+        self.gas = GasProperties.for_stream(inlet.F)       # pressure passed where it matters
         self.p = inlet.p
         self.F_in_tot = inlet.total
         self.cp_ref = float(self.gas.cp_molar(inlet.T))
@@ -429,12 +442,15 @@ class _BrickModel:
 
 
 def solve_brick(brick: Brick, inlet: Stream, *, guess: np.ndarray | None = None,
-                settings: SolverSettings | None = None, check_validity: bool = True
-                ) -> BrickSolution:
+                settings: SolverSettings | None = None, check_validity: bool = True,
+                factors: tuple | None = None) -> BrickSolution:
     """Steady state of ``brick`` fed by ``inlet``.
 
     Never raises on non-convergence: the solution carries ``converged`` and ``residual``.
-    ``guess`` (a previous solution's ``state`` on the same grid) warm-starts the solver.
+    ``guess`` (a previous solution's ``state`` on the same grid) warm-starts the solver, and
+    ``factors`` (its ``factors``) lets the first steps reuse that solution's Jacobian: for a
+    neighbouring problem (a slightly longer brick, a nearby inlet) the chord steps then converge
+    with no new Jacobian. A Jacobian that does not fit or contracts too slowly is replaced.
     """
     t0 = time.perf_counter()
     st = settings or SolverSettings()
@@ -444,9 +460,13 @@ def solve_brick(brick: Brick, inlet: Stream, *, guess: np.ndarray | None = None,
     model = _BrickModel(brick, inlet)
     x = model.initial_state() if guess is None or guess.shape != (model.n, model.nv) \
         else guess.copy()
-    x, its, res = newton.iterate(model, x, st)
+    if factors is not None and factors[2].shape[:2] != (model.n, model.nv):
+        factors = None
+    x, its, res, factors = newton.iterate(model, x, st, factors)
     converged = res < st.tol_accept      # tol is the target; round-off may stall just above it
-    return _package(model, x, inlet, converged, res, its, time.perf_counter() - t0)
+    sol = _package(model, x, inlet, converged, res, its, time.perf_counter() - t0)
+    sol.factors = factors
+    return sol
 
 
 def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds) -> BrickSolution:
@@ -454,10 +474,6 @@ def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds)
     n = model.n
     F = x[:, :NSP].copy()
     Tg, Ts = x[:, model.iTg].copy(), x[:, model.iTs].copy()
-    rates, *_ = model.layer_rates(x, *model.inflow(x))
-    vol = model.A * model.dz
-    extents = [(vol * model.node_frac[model.layer_nodes[k]][None, :, None] * rates[k]).sum(axis=1)
-               for k in range(len(model.mechs))]
     # pressure drop along the brick with the solved temperatures
     rho = model.gas.density(Tg, model.p)
     mu = model.gas.viscosity(Tg)
@@ -489,7 +505,7 @@ def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds)
         coverage=x[:, model.ith0:].reshape(n, model.nnode, model.ns).copy(),
         c_surface=x[:, model.ic0:model.ith0].reshape(n, model.nnode, model.nf).copy(),
         film_species=[SPECIES[i] for i in model.film], node_layer=model.node_layer,
-        extents=extents, dp=dp, converged=bool(converged), residual=float(res), iterations=its,
+        model=model, dp=dp, converged=bool(converged), residual=float(res), iterations=its,
         element_balance_error=err, seconds=seconds, notes=notes, state=x.copy())
 
 

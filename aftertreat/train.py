@@ -52,7 +52,7 @@ class Train:
         sols: list[BrickSolution] = []
         stream = inlet
         for i, b in enumerate(self.bricks):
-            g = None
+            g = jac = None
             if guess is not None and i < len(guess.bricks):
                 prev = guess.bricks[i]
                 if prev.converged and _same_brick(prev.brick, b) and _same_stream(prev.inlet,
@@ -60,8 +60,8 @@ class Train:
                     sols.append(prev)           # same brick, same inlet: the same steady state
                     stream = prev.outlet
                     continue
-                g = prev.state
-            sol = solve_brick(b, stream, guess=g, settings=settings)
+                g, jac = prev.state, getattr(prev, "factors", None)
+            sol = solve_brick(b, stream, guess=g, settings=settings, factors=jac)
             sols.append(sol)
             stream = sol.outlet
         return TrainSolution(train=self, inlet=inlet, bricks=sols,
