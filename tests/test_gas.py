@@ -107,6 +107,23 @@ def test_normalisation_and_from_flows():
     np.testing.assert_allclose(a.conductivity([400.0, 800.0]), b.conductivity([400.0, 800.0]))
 
 
+def test_shared_tables_for_streams():
+    """for_stream rounds the composition to COMPOSITION_STEP: nearly equal streams share one
+    table, and its properties (at the caller's pressure) stay within 1e-3 of the exact
+    composition's (consistency of our own rounding, no external basis)."""
+    F = EXHAUST * 2.5
+    F2 = F.copy()
+    F2[0] *= 1.0 + 1e-6
+    a, b = GasProperties.for_stream(F), GasProperties.for_stream(F2)
+    assert a is b
+    exact = GasProperties(EXHAUST, 1.3e5)
+    T = np.array([450.0, 700.0, 950.0])
+    np.testing.assert_allclose(a.diffusivity(T, 1.3e5), exact.diffusivity(T, 1.3e5), rtol=1e-3)
+    np.testing.assert_allclose(a.density(T, 1.3e5), exact.density(T), rtol=1e-3)
+    np.testing.assert_allclose(a.viscosity(T), exact.viscosity(T), rtol=1e-3)
+    np.testing.assert_allclose(a.conductivity(T), exact.conductivity(T), rtol=1e-3)
+
+
 def test_no_cantera_after_construction(exhaust, monkeypatch):
     """Evaluation needs no Cantera: all calls work with the Cantera accessors disabled."""
     def forbidden(*args, **kwargs):

@@ -75,8 +75,9 @@ def left(sol):
 
 
 def film_coefficient(stream):
-    """k_m = Sh D / d_h with the fully developed square-duct Sh = 2.976 (Shah & London 1978)."""
-    D = GasProperties.from_flows(stream.F, p=stream.p).diffusivity(T0, P0)[INDEX["N2O"]]
+    """k_m = Sh D / d_h with the fully developed square-duct Sh = 2.976 (Shah & London 1978),
+    with the diffusivity the model uses (its shared table for the stream's composition)."""
+    D = GasProperties.for_stream(stream.F).diffusivity(T0, P0)[INDEX["N2O"]]
     return shah_london_1978("square").nu_t * D / SUB.d_h
 
 
