@@ -106,6 +106,11 @@ def _worst(res, quantities: tuple[str, ...], margin: float) -> float:
     return max((q for _, q in _ratios(res, quantities, margin)), default=0.0)
 
 
+def _rows(res, quantities: tuple[str, ...], margin: float) -> dict:
+    """value/(limit with margin) per limit row of a group, keyed by name and mode."""
+    return {(r["name"], r.get("mode")): q for r, q in _ratios(res, quantities, margin)}
+
+
 class _Designs:
     """Evaluate designs (SCR length, slip-catalyst length) with caching and warm starts."""
 
@@ -151,7 +156,7 @@ class _Designs:
             prev = self.cache[near]
             if prev.converged:
                 guesses = [m.solution for m in prev.modes]
-                if abs(near[0] - L_scr) > 1e-12:
+                if near[0] != key[0]:     # (keys are rounded: compare keys)
                     guesses = [self._remap(g, L_scr) for g in guesses]
         res = run_case(self.case, train=self.train(L_scr, L_asc), guesses=guesses,
                        inlets=self.inlets, settings=self.settings)
@@ -178,7 +183,7 @@ class _Designs:
         for i, b in enumerate(sol.bricks):
             if i not in self.scr:
                 bricks.append(SimpleNamespace(state=b.state, converged=False, brick=None,
-                                              inlet=None))
+                                              inlet=None, factors=b.factors))
                 continue
             L_new = L_scr * b.brick.length / sum(x.brick.length for x in scr)
             n = b.state.shape[0]
@@ -186,71 +191,106 @@ class _Designs:
             z0 += L_new
             x = np.stack([np.interp(z_new, z_old, x_old[:, k]) for k in range(x_old.shape[1])],
                          axis=1)
-            bricks.append(SimpleNamespace(state=x, converged=False, brick=None, inlet=None))
+            bricks.append(SimpleNamespace(state=x, converged=False, brick=None, inlet=None,
+                                          factors=b.factors))
         return SimpleNamespace(bricks=bricks)
 
 
-def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step: float = 2.0):
-    """Smallest x in [lo, hi] with f(x) <= 1 for a decreasing f: (x, feasible, f at the answer).
+def _as_rows(v) -> dict:
+    """A ratio (float) or ratios per limit row (dict) as a dict of log ratios."""
+    rows = v if isinstance(v, dict) else {"": v}
+    return {k: (math.log(r) if r > 0 else -math.inf) for k, r in rows.items()}
 
-    Brackets from x0 by factors of ``step``, then Illinois regula falsi on log f versus x until the
-    bracket is narrower than ``tol`` (relative); the feasible end is returned.
-    """
-    x = min(max(x0, lo), hi)
-    fx = f(x)
-    if fx <= _ACCEPT:
-        good, f_good, bad, f_bad = x, fx, None, None
-        prev = None
-        while x > lo * (1 + 1e-12):
-            x_next = max(x / step, lo)
-            if prev is not None and step > 1.1:
-                # log f ~ linear in x: aim just below the predicted root, but at most a factor
-                # ``step`` and at least 5 % down
-                (xa, fa), (xb, fb) = prev, (x, fx)
-                slope = (math.log(fb) - math.log(fa)) / (xb - xa) if xb != xa else 0.0
-                if slope < 0:
-                    root = xb + math.log(_ACCEPT / fb) / slope
-                    x_next = min(max(0.97 * root, x / step, lo), x * 0.95)
-            prev = (x, fx)
-            x = x_next
-            fx = f(x)
-            if fx > _ACCEPT:
-                bad, f_bad = x, fx
-                break
-            good, f_good = x, fx
-        if bad is None:
-            return good, True, f_good
-    else:
-        good, f_good, bad, f_bad = None, None, x, fx
-        while x < hi * (1 - 1e-12):
-            x = min(x * step, hi)
-            fx = f(x)
-            if fx <= _ACCEPT:
-                good, f_good = x, fx
-                break
-            bad, f_bad = x, fx
-        if good is None:
-            return bad, False, f_bad
-    side = 0
-    while good / bad - 1.0 > tol:
-        gb = math.log(max(f_bad, 1e-300) / _ACCEPT)
-        gg = math.log(max(f_good, 1e-300) / _ACCEPT)
-        # plug flow: outlet/inlet ~ exp(-const x L), so log f is nearly linear in L itself
-        t = gb / (gb - gg) if gb != gg else 0.5
-        t = min(max(t, 0.05), 0.95)
-        x = bad + t * (good - bad)
-        fx = f(x)
-        if fx <= _ACCEPT:
-            good, f_good = x, fx
-            if side == 1:                       # Illinois: halve the stale end's weight
-                f_bad = _ACCEPT * math.sqrt(f_bad / _ACCEPT)
-            side = 1
+
+def _predict(a, b, slopes, thr: float):
+    """Root of max over rows of the log ratios, each taken linear in x through the points ``a``
+    and ``b`` ((x, {row: log ratio}); ``b`` may be None, then ``slopes`` gives the slopes).
+    None when no row falls with x."""
+    roots = []
+    for k, ga in a[1].items():
+        if not math.isfinite(ga):
+            continue
+        gb = b[1].get(k, math.nan) if b is not None else math.nan
+        if math.isfinite(gb) and b[0] != a[0]:
+            s = (gb - ga) / (b[0] - a[0])
+        elif slopes and k in slopes:
+            s = slopes[k]
         else:
-            bad, f_bad = x, fx
-            if side == -1:
-                f_good = _ACCEPT * math.sqrt(max(f_good, 1e-300) / _ACCEPT)
-            side = -1
-    return good, True, f_good
+            continue
+        if s < 0:
+            roots.append(a[0] + (thr - ga) / s)
+    return max(roots) if roots else None
+
+
+def _slopes(a, b) -> dict:
+    """d(log ratio)/dx per row between the points a and b."""
+    if a is None or b is None or a[0] == b[0]:
+        return {}
+    return {k: (b[1][k] - g) / (b[0] - a[0]) for k, g in a[1].items()
+            if k in b[1] and math.isfinite(g) and math.isfinite(b[1][k])}
+
+
+def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step: float = 2.0,
+              slopes: dict | None = None):
+    """Smallest x in [lo, hi] at which f(x) <= 1, for an f that falls as x grows.
+
+    ``f`` returns a ratio value/limit, or a dict of ratios, one per limit row, which is better:
+    each row's log ratio is nearly linear in x (plug flow: outlet/inlet ~ exp(-k L)), while
+    their maximum has kinks where the binding row changes. Each row gets its own secant through
+    the two latest points (the bracket ends once there is a bracket), and the root of the
+    maximum is predicted as the largest row root. Each step aims just past that prediction, on
+    the side of the bracket end that lies further away (a third of ``tol`` past it), so the
+    bracket closes from both ends; a bracket that has not halved (in log x) in two steps is
+    bisected instead. Before a bracket exists, steps grow by at most ``step``. ``slopes`` (per
+    row, from an earlier search on a neighbouring problem) lets the first step be predicted from
+    one point. Stops when the bracket [infeasible, feasible] is narrower than ``tol``
+    (relative) and returns (x, feasible, f at x, slopes per row at the answer).
+    """
+    thr = math.log(_ACCEPT)
+    good = bad = None                           # (x, {row: log ratio})
+    last = []
+    widths = []
+
+    def worst(p):
+        return max(p[1].values(), default=-math.inf)
+
+    x = min(max(x0, lo), hi)
+    for _ in range(100):
+        p = (x, _as_rows(f(x)))
+        last = [p] + last[:1]
+        if worst(p) <= thr:
+            if good is None or x < good[0]:
+                good = p
+        elif bad is None or x > bad[0]:
+            bad = p
+        if good is not None and bad is not None and good[0] <= bad[0] * (1.0 + tol):
+            break
+        if good is None and bad[0] >= hi * (1 - 1e-12):
+            return bad[0], False, math.exp(worst(bad)), _slopes(*last) if len(last) > 1 else {}
+        if bad is None and good[0] <= lo * (1 + 1e-12):
+            break
+        if good is not None and bad is not None:
+            xl, xh = bad[0], good[0]
+            R = _predict(bad, good, slopes, thr)
+            widths.append(math.log(xh / xl))
+            if R is None or not xl < R < xh or (len(widths) > 2 and widths[-1] > 0.5 * widths[-3]):
+                R = math.sqrt(xl * xh)
+                x = R
+            else:
+                x = R * (1 + tol / 3) if xh / R - 1 > R / xl - 1 else R * (1 - tol / 3)
+            x = min(max(x, xl * (1 + tol / 4)), xh / (1 + tol / 4))
+        elif bad is None:                       # every point so far complies: go down
+            xg = good[0]
+            R = _predict(last[0], last[1] if len(last) > 1 else None, slopes, thr)
+            x = xg / step if R is None else max(R * (1 - tol / 3), xg / step)
+            x = max(min(x, xg / (1 + 0.98 * tol)), lo)
+        else:                                   # every point so far fails: go up
+            xb = bad[0]
+            R = _predict(last[0], last[1] if len(last) > 1 else None, slopes, thr)
+            x = xb * step if R is None else min(R * (1 + tol / 3), xb * step)
+            x = min(max(x, xb * (1 + 0.98 * tol)), hi)
+    out = _slopes(bad, good) or (_slopes(*last) if len(last) > 1 else {}) or dict(slopes or {})
+    return good[0], True, math.exp(worst(good)), out
 
 
 def _refine_guesses(res, train) -> list:
@@ -297,23 +337,21 @@ def _renode(x, old, new, nf: int):
                           axis=1)
 
 
-def _grow(f, x0: float, hi: float, max_evals: int = 8) -> float:
+def _grow(f, x0: float, hi: float, slopes: dict | None = None, max_evals: int = 8) -> float:
     """The answer of the coarse search, confirmed on the fine grid: ``x0`` if it complies there,
-    else grown by secant steps on log f (nearly linear in length) until it does."""
-    f0 = f(x0)
-    if f0 <= _ACCEPT or x0 >= hi:
-        return x0
-    x1 = min(x0 * 1.02, hi)
-    f1 = f(x1)
+    else grown until it does, by per-row secant steps (see :func:`_smallest`) that start from
+    the coarse search's slopes and aim a third of the tolerance past the predicted root."""
+    thr = math.log(_ACCEPT)
+    p = (x0, _as_rows(f(x0)))
+    prev = None
     for _ in range(max_evals):
-        if f1 <= _ACCEPT or x1 >= hi:
-            return x1
-        g0, g1 = math.log(f0 / _ACCEPT), math.log(f1 / _ACCEPT)
-        slope = (g1 - g0) / (x1 - x0) if x1 != x0 else -1.0
-        step = -g1 / slope * 1.05 if slope < 0 else 0.02 * x1
-        x2 = min(max(x1 + step, x1 * 1.002), x1 * 1.25, hi)
-        x0, f0, x1, f1 = x1, f1, x2, f(x2)
-    return x1
+        if max(p[1].values(), default=-math.inf) <= thr or p[0] >= hi:
+            return p[0]
+        R = _predict(p, prev, slopes, thr)
+        x = p[0] * 1.02 if R is None else R * (1 + SIZING_TOL / 3)
+        x = min(max(x, p[0] * 1.002), p[0] * 1.25, hi)
+        prev, p = p, (x, _as_rows(f(x)))
+    return p[0]
 
 
 def _face_velocity_diameter(case, inlets, v: float) -> float:
@@ -438,6 +476,7 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     nox = ("NOx", "N2O", "GHG") if has_asc else ("NOx", "NH3", "N2O", "GHG")
     problems, suggestions = [], []
     feasible = True
+    slopes = {"scr": None, "asc": None}       # per limit row, carried between passes
 
     def search(designs, L_scr, L_asc, first_step, passes):
         """Alternate SCR and slip-catalyst sizing on ``designs``; returns lengths and status."""
@@ -446,16 +485,17 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         def f_scr(L):
             if progress:
                 progress(f"SCR {L * 1e3:.0f} mm")
-            return _worst(designs(L, L_asc), nox, m)
+            return _rows(designs(L, L_asc), nox, m)
 
         def f_asc(L):
             if progress:
                 progress(f"slip catalyst {L * 1e3:.0f} mm")
-            return _worst(designs(L_scr, L), ("NH3",), m)
+            return _rows(designs(L_scr, L), ("NH3",), m)
 
         for k in range(passes):
             step = first_step if k == 0 else 1.05   # later passes start next to the answer
-            L_scr, ok, _ = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step)
+            L_scr, ok, _, slopes["scr"] = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step,
+                                                    slopes=slopes["scr"])
             if not ok:
                 feasible = False
                 problems.append(f"with an SCR up to {scr_hi * 1e3:.0f} mm long these limits "
@@ -466,7 +506,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             if not has_asc:
                 break
             L_prev = L_asc
-            L_asc, ok_a, _ = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step)
+            L_asc, ok_a, _, slopes["asc"] = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step,
+                                                      slopes=slopes["asc"])
             if not ok_a:
                 feasible = False
                 problems.append(f"with a slip catalyst up to {asc_hi * 1e3:.0f} mm long these "
@@ -474,7 +515,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                                 + "; ".join(_failing(designs(L_scr, L_asc), ("NH3",), m)))
                 suggestions.extend(_suggest(designs(L_scr, L_asc), ("NH3",), m, case))
                 break
-            if f_scr(L_scr) <= _ACCEPT and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
+            if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT \
+                    and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
                 break
         return L_scr, L_asc
 
@@ -488,10 +530,10 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     for _ in range(3):
         if not feasible:
             break
-        L_scr = _grow(lambda L: _worst(designs(L, L_asc), nox, m), L_scr, scr_hi)
+        L_scr = _grow(lambda L: _rows(designs(L, L_asc), nox, m), L_scr, scr_hi, slopes["scr"])
         if has_asc:
-            L_asc = _grow(lambda L: _worst(designs(L_scr, L), ("NH3",), m), L_asc,
-                          asc_hi)
+            L_asc = _grow(lambda L: _rows(designs(L_scr, L), ("NH3",), m), L_asc, asc_hi,
+                          slopes["asc"])
         if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT:
             break
     res = designs(L_scr, L_asc)

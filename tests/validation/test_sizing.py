@@ -139,10 +139,10 @@ def test_smallest_root_finder():
     from aftertreat.sizing import _smallest
     root = 0.3 + math.log(2.0) / 3.0
     for x0 in (0.05, 0.5, 3.0):
-        x, ok, fx = _smallest(lambda x: 2.0 * math.exp(-3.0 * (x - 0.3)), x0, 0.02, 4.0)
+        x, ok, fx, _ = _smallest(lambda x: 2.0 * math.exp(-3.0 * (x - 0.3)), x0, 0.02, 4.0)
         assert ok and fx <= 1.0
         assert root <= x <= root * (1 + SIZING_TOL) + 1e-12
-    x, ok, _ = _smallest(lambda x: 5.0, 0.1, 0.02, 4.0)
+    x, ok, _, _ = _smallest(lambda x: 5.0, 0.1, 0.02, 4.0)
     assert not ok and x == 4.0
 
 
