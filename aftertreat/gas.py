@@ -183,6 +183,12 @@ class GasProperties:
             return D
         return D * (self.p / np.asarray(p, dtype=float))[..., np.newaxis]
 
+    def transport(self, T, p) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(viscosity [Pa s], conductivity [W/(m K)], diffusivities [m2/s] at pressure ``p``
+        [Pa]) from one interpolation; the same values as the single-property methods."""
+        P = self._interp(T, slice(None))
+        return P[..., 0], P[..., 1], P[..., 2:] * (self.p / np.asarray(p, dtype=float))[..., None]
+
     def prandtl(self, T) -> np.ndarray:
         """Prandtl number cp_mass mu / k [-]; shape T.shape."""
         return self.cp_mass(T) * self.viscosity(T) / self.conductivity(T)

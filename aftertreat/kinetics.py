@@ -142,13 +142,13 @@ class _Form:
 
 
 class PowerLaw(_Form):
-    def __call__(self, c, theta, T):
-        return self.k(T) * self._conc_part(c)
+    def __call__(self, c, theta, T, k=None):
+        return (self.k(T) if k is None else k) * self._conc_part(c)
 
 
 class MassAction(_Form):
-    def __call__(self, c, theta, T):
-        return self.k(T) * self._conc_part(c) * self._cov_part(theta)
+    def __call__(self, c, theta, T, k=None):
+        return (self.k(T) if k is None else k) * self._conc_part(c) * self._cov_part(theta)
 
 
 @dataclass
@@ -158,9 +158,9 @@ class TemkinDesorption(_Form):
     alpha: float = 0.0
     site: int = 0
 
-    def __call__(self, c, theta, T):
+    def __call__(self, c, theta, T, k=None):
         th = np.clip(theta[..., self.site], 0.0, 1.0)
-        return self.k(T) * np.exp(self.alpha * self.E * th / (R_GAS * T)) * th
+        return (self.k(T) if k is None else k) * np.exp(self.alpha * self.E * th / (R_GAS * T)) * th
 
 
 @dataclass
@@ -168,10 +168,10 @@ class EleyRidealCritical(_Form):
     theta_star: float = 1.0
     site: int = 0
 
-    def __call__(self, c, theta, T):
+    def __call__(self, c, theta, T, k=None):
         th = np.clip(theta[..., self.site], 0.0, 1.0)
         ts = self.theta_star
-        return self.k(T) * self._conc_part(c) * ts * (1.0 - np.exp(-th / ts))
+        return (self.k(T) if k is None else k) * self._conc_part(c) * ts * (1.0 - np.exp(-th / ts))
 
 
 @dataclass
@@ -179,7 +179,7 @@ class Reversible(_Form):
     nu: np.ndarray | None = None
     log_kc: object = None            # callable T -> ln Kc in mol/m3 units
 
-    def __call__(self, c, theta, T):
+    def __call__(self, c, theta, T, k=None):
         fwd = 1.0
         rev = 1.0
         for i in np.nonzero(self.nu)[0]:
@@ -188,7 +188,7 @@ class Reversible(_Form):
                 fwd = fwd * _power(c[..., i], -n)
             else:
                 rev = rev * _power(c[..., i], n)
-        return self.k(T) * (fwd - rev * np.exp(-self.log_kc(T))) * self._cov_part(theta)
+        return (self.k(T) if k is None else k) * (fwd - rev * np.exp(-self.log_kc(T))) * self._cov_part(theta)
 
 
 @dataclass
@@ -198,7 +198,7 @@ class LangmuirHinshelwood(_Form):
     nu: np.ndarray | None = None
     log_kc: object = None
 
-    def __call__(self, c, theta, T):
+    def __call__(self, c, theta, T, k=None):
         den = 1.0
         for i, (K_ref, dH, T_ref) in self.inhibition.items():
             den = den + K_ref * np.exp(-dH / R_GAS * (1.0 / T - 1.0 / T_ref)) * _pos(c[..., i])
@@ -212,7 +212,7 @@ class LangmuirHinshelwood(_Form):
                 if e != 0.0:
                     back = back * _power(c[..., i], e)
             fwd = fwd - back * np.exp(-self.log_kc(T))
-        return self.k(T) * fwd * self._cov_part(theta) / den ** self.inhibition_order
+        return (self.k(T) if k is None else k) * fwd * self._cov_part(theta) / den ** self.inhibition_order
 
 
 #: Rate-law forms by name, with the parameter keys each accepts beyond the Arrhenius ones.
@@ -408,6 +408,9 @@ class Mechanism:
         self.nu_site = np.array([r.nu_site for r in self.reactions]).reshape(
             len(self.reactions), len(self.sites))
         self.ages = np.array([r.ages for r in self.reactions], dtype=bool)
+        self._k_ref = np.array([r.law.k_ref for r in self.reactions])
+        self._E_R = np.array([r.law.E / R_GAS for r in self.reactions])
+        self._inv_T_ref = np.array([1.0 / r.law.T_ref for r in self.reactions])
         deps = set()
         for r in self.reactions:
             law = r.law
@@ -433,8 +436,10 @@ class Mechanism:
         T = np.asarray(T, dtype=float)
         shape = np.broadcast_shapes(T.shape, np.shape(c)[:-1])
         out = np.empty(shape + (len(self.reactions),))
+        # every rate constant in one exponential (Arrhenius, as in :func:`arrhenius`)
+        k = self._k_ref * np.exp(-self._E_R * (1.0 / T[..., None] - self._inv_T_ref))
         for j, r in enumerate(self.reactions):
-            out[..., j] = r.law(c, theta, T)
+            out[..., j] = r.law(c, theta, T, k[..., j])
         if activity != 1.0:
             out[..., self.ages] *= activity
         return out

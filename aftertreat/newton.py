@@ -224,6 +224,10 @@ def _march(model, x0, st):
 CHORD_ACCEPT = 0.5
 #: ...and the Jacobian is kept for the next step while the cut is below this one.
 CHORD_KEEP = 0.1
+#: Below this multiple of the tolerance a chord step that stalls ends the iteration (the
+#: residual is then at the round-off floor of the scaled rows, ~1e-12, not limited by the
+#: Jacobian; it still counts as converged only below ``tol_accept``).
+_ROUND_OFF = 10.0
 
 
 def iterate(model, x0, st, J0=None):
@@ -256,6 +260,7 @@ def iterate(model, x0, st, J0=None):
     best_res, best_x = np.inf, x0.copy()
     known = current = None                 # (x, R) of the last accepted line-search point
     J = J0                                 # factored Jacobian kept for chord steps
+    J_out = J0                             # the latest plain Newton Jacobian, returned
     chord_left = st.max_chord
     while its < budget:
         F_in, Tg_in = model.inflow(x)
@@ -280,18 +285,23 @@ def iterate(model, x0, st, J0=None):
             x_new = model.clip(x + apply_jacobian(model, J, R))
             R_new = model.residual(x_new, *model.inflow(x_new))
             res_new = norm(model, R_new)
+            near = res < _ROUND_OFF * st.tol           # within reach of round-off
             if np.isfinite(res_new) and res_new < CHORD_ACCEPT * res:
-                if res_new > CHORD_KEEP * res:
+                if res_new > CHORD_KEEP * res and not near:
                     J = None                   # slow contraction: a fresh Jacobian next time
                 x = x_new
                 known = (x, R_new)
                 continue
+            if near:
+                break                          # round-off, not the Jacobian, stops progress
             J, known = None, (x, R)            # refresh at x and take a Newton step from it
             continue
         diag = None if tau is None else diag_mask / tau
         try:
             J = jacobian(model, x, R, F_in, Tg_in, st.fd_step, diag)
             dx = apply_jacobian(model, J, R)
+            if tau is None:
+                J_out = J
         except np.linalg.LinAlgError:
             J, dx = None, np.full_like(x, np.nan)
         if tau is not None:
@@ -340,6 +350,6 @@ def iterate(model, x0, st, J0=None):
     else:
         res_x = norm(model, model.residual(x, *model.inflow(x)))
     if res_x > best_res:
-        return best_x, its, best_res, J        # never return worse than the best state seen
-    return x, its, res_x, J
+        return best_x, its, best_res, J_out    # never return worse than the best state seen
+    return x, its, res_x, J_out
 

@@ -96,7 +96,7 @@ class BrickSolution:
     dp: transport.PressureDrop
     converged: bool
     residual: float
-    iterations: int
+    iterations: int                    # Jacobians formed (chord steps reuse one; not counted)
     element_balance_error: float
     seconds: float
     notes: list[str] = field(default_factory=list)
@@ -387,7 +387,7 @@ class _BrickModel:
                 R[:, self.ith0:].reshape(n, self.nnode, self.ns)[:, nodes, :] = th[:, nodes, :]
         R[:, :NSP] = (F - F_in - dF) / self.F_in_tot
         # transfer coefficients at the gas temperature
-        cond = self.gas.conductivity(Tg)
+        _, cond, D_gas = self.gas.transport(Tg, self.p)
         h = self.Nu[rows] * cond / self.d_h                                  # [n] W/(m2 K)
         hA = h * self.A_ht
         cp = self.gas.cp_molar(Tg)
@@ -402,7 +402,7 @@ class _BrickModel:
         # film and washcoat diffusion
         cbf = cb[:, self.film_idx]
         if self.brick.film:
-            D = self.gas.diffusivity(Tg, self.p)[:, self.film_idx]
+            D = D_gas[:, self.film_idx]
             km = self.Sh[rows] * D / self.d_h                                # [n, nf] m/s
         else:
             km = np.full((n, nf), 1e12)

@@ -100,7 +100,7 @@ def section_train(repeats):
 
     def status(s):
         its = "/".join(str(b.iterations) for b in s.bricks)
-        return f"iterations {its:>9s}  converged {s.converged}  residual {s.residual:.1e}"
+        return f"Jacobians {its:>9s}  converged {s.converged}  residual {s.residual:.1e}"
     print(f"   cold start                    {t_cold * 1e3:8.1f} ms   {status(sol)}")
     print(f"   same point again              {t_warm_same * 1e3:8.1f} ms   (solutions reused: "
           "same bricks, same inlet)")
@@ -116,7 +116,7 @@ def section_train(repeats):
 
 def section_cells(repeats):
     print("2. cost versus cells (same train, same cells in every brick, cold start)")
-    print("   cells/brick   ms/solve   ms/cell   iterations   converged   outlet NO ppm   NH3 ppm")
+    print("   cells/brick   ms/solve   ms/cell    Jacobians   converged   outlet NO ppm   NH3 ppm")
     inlet = exhaust()
     for n in (25, 50, 100, 200):
         tr = train(cells=n)
@@ -173,7 +173,7 @@ def section_cantera(repeats, quick):
         t, s = median_time(lambda: at.solve_brick(b, inlet, settings=settings), repeats)
         err = s.outlet.ppm("NO") / ref - 1
         print(f"     {cells:4d} cells  NO error {err * 100:+8.4f} %   {t * 1e3:8.2f} ms   "
-              f"iterations {s.iterations}  converged {s.converged}")
+              f"Jacobians {s.iterations}  converged {s.converged}")
         if ours_pick is None and abs(err) < target and s.converged:
             ours_pick = (cells, t, err)
 
