@@ -158,7 +158,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
               f"ppmvd; back-pressure {dp:.2f} kPa (worst mode)"
               + (f"; cost {res.cost:.1f}" if res.cost is not None else ""))
     if res.feasible:
-        con.print("[green]feasible[/green]: binding limits: " + (", ".join(res.binding) or
+        con.print("[green]feasible[/green]; binding limits: " + ("; ".join(res.binding) or
                                                                  "none within 1.5 %"))
     else:
         con.print("[red]NOT FEASIBLE[/red]")

@@ -39,7 +39,9 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     dp_max_kPa = 5.0                   # back-pressure budget of the train, worst mode
     max_length_mm = 3000               # space envelope: total train length ...
     max_diameter_mm = 1500             # ... and diameter
-    face_velocity_m_s = 4.0            # diameter from the face velocity at the largest flow
+    face_velocity_m_s = 4.0            # diameter from the face velocity at the largest flow,
+    # or: ghsv_per_h = 20000 with length_to_diameter = 1.0 (SCR section of volume Q_N / GHSV
+    # at the largest flow, that slender); one diameter rule at most
     diameter_from_dp = true            # then raise the diameter until dp_max_kPa is met
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
     choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
@@ -72,7 +74,7 @@ _DOSING = {"method", "ANR", "urea_mass_fraction"}
 _LIMITS = {"sets", "gwp", "custom"}
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
            "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
-           "choose_ANR", "ANR_excess", "diameter_from_dp"}
+           "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter"}
 
 
 @dataclass
@@ -278,7 +280,8 @@ def _sizing(data, file) -> dict:
     bounds = {"design_margin": (0.0, 0.5), "dp_max_kPa": (0.01, 100.0),
               "max_length_mm": (10.0, 1e5), "max_diameter_mm": (10.0, 1e5),
               "face_velocity_m_s": (0.1, 100.0), "scr_length_max_mm": (10.0, 1e5),
-              "asc_length_max_mm": (10.0, 1e5)}
+              "asc_length_max_mm": (10.0, 1e5), "ghsv_per_h": (100.0, 1e6),
+              "length_to_diameter": (0.05, 20.0)}
     for k, (lo, hi) in bounds.items():
         if k in s:
             v = s[k]
@@ -286,6 +289,13 @@ def _sizing(data, file) -> dict:
                 raise InputError(f"expected a number within [{lo}, {hi}]", key=f"sizing.{k}",
                                  value=v, file=file)
             out[k] = float(v)
+    if "face_velocity_m_s" in out and "ghsv_per_h" in out:
+        raise InputError("give one diameter rule: face_velocity_m_s or ghsv_per_h, not both",
+                         key="sizing.ghsv_per_h", value=out["ghsv_per_h"], file=file)
+    if "length_to_diameter" in out and "ghsv_per_h" not in out:
+        raise InputError("length_to_diameter belongs to the GHSV diameter rule: give ghsv_per_h "
+                         "too", key="sizing.length_to_diameter", value=out["length_to_diameter"],
+                         file=file)
     for flag in ("choose_ANR", "diameter_from_dp"):
         if flag in s:
             if not isinstance(s[flag], bool):

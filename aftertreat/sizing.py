@@ -4,20 +4,28 @@ The SCR section (all SCR bricks, scaled together in their case proportions) and 
 section (ASC or oxidation bricks after the SCR) are sized separately, at the case's aged activity,
 with a design margin on every limit:
 
-1. SCR length: the smallest one for which every NOx limit holds at every mode and over the cycle
-   (and the NH3 limits too when the train has no slip catalyst). The search runs on a coarse grid
-   (``COARSE_GRID``) and its answer is confirmed on the case's own grid, and grown there if it
-   does not comply: the answer is the smallest to within the coarse grid's error (1-2 %). The worst ratio value/limit falls
-   as the SCR grows, so the root of ``log(ratio)`` in the length is bracketed and found by
-   the Illinois variant of regula falsi (Dowell & Jarratt, BIT 11 (1971) 168) to 0.5 %.
+1. SCR length: the smallest one for which every NOx, N2O and greenhouse-gas limit holds at
+   every mode and over the cycle (and the NH3 limits too when the train has no slip catalyst).
+   N2O belongs here because a longer SCR uses more NH3, so less reaches the slip catalyst,
+   whose platinum layer turns part of it into N2O.
 2. Slip-catalyst length: likewise for the NH3 limits, with the SCR at its size.
-3. Step 1 is repeated if the slip catalyst moved the NOx (its SCR layer reduces NOx, its oxidation
-   layer makes NO). Every other limit (N2O, greenhouse gases), the back-pressure budget and the
-   space envelope are checked on the result; what fails is reported, not hidden.
+3. Steps 1 and 2 are repeated until neither moves (the slip catalyst's SCR layer reduces NOx
+   and its oxidation layer makes NO and N2O). The back-pressure budget, the space envelope and
+   every limit are checked on the result; what fails is reported, not hidden.
 
-Each design is evaluated with :func:`aftertreat.evaluate.run_case` on the same grid, warm-started
-from the nearest design already solved. The diameter is the case's, or set by a face-velocity rule
-at the largest exhaust flow of the cycle.
+Search: every ratio value/(limit x (1 - margin)) falls as a section grows, and in plug flow
+its logarithm is nearly linear in the length (outlet/inlet ~ exp(-k L)); the worst ratio is
+their maximum, with kinks where the binding limit changes. So each limit row gets its own
+secant and the root of the maximum is predicted as the largest row root; steps aim just past
+it from alternating ends of the bracket, which closes to 0.5 % (``SIZING_TOL``) in 2-4
+evaluations once bracketed (:func:`_smallest`). The search runs on a coarse grid
+(``COARSE_GRID``); its answer is then confirmed on the case's own grid and grown there if it
+does not comply, so it is the smallest to within the coarse grid's error (1-2 %).
+
+Each design is evaluated with :func:`aftertreat.evaluate.run_case`, warm-started from the
+nearest design already solved (states mapped by distance from the inlet, and its Jacobians).
+The diameter is the case's, or set by a face-velocity or GHSV rule at the largest exhaust flow
+of the cycle, or raised to meet the back-pressure budget.
 """
 from __future__ import annotations
 
@@ -359,6 +367,18 @@ def _face_velocity_diameter(case, inlets, v: float) -> float:
     return math.sqrt(4.0 * q / (math.pi * v))
 
 
+def ghsv_diameter(inlets, ghsv_per_h: float, length_to_diameter: float = 1.0) -> float:
+    """Diameter [m] of an SCR section that has the design GHSV at the largest flow of the cycle
+    and the given length/diameter ratio: V = pi D^2/4 (r D) with V the volume that gives
+    ``ghsv_per_h`` (:func:`aftertreat.train.ghsv_per_h`, normal conditions, walls included), so
+    D = (4 V / (pi r))^(1/3). A design GHSV is the usual first estimate of SCR volume (common
+    practice); the lengths are then sized by the kinetics at this diameter."""
+    from . import train
+    stream = max((inl[3] for inl in inlets), key=lambda s: s.total)
+    V = train.ghsv_per_h(stream, 1.0) / ghsv_per_h        # GHSV x V is fixed by the flow
+    return (4.0 * V / (math.pi * length_to_diameter)) ** (1.0 / 3.0)
+
+
 def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     """ANR per mode for dosing to a NOx-conversion target (common practice in SCR design).
 
@@ -406,7 +426,8 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     ANR acts as the upper bound; if dosing to the target cannot comply within the envelope, the
     upper bound itself is sized.
 
-    Diameter: the case's, or from ``face_velocity_m_s`` at the largest flow of the cycle, capped
+    Diameter: the case's, or from ``face_velocity_m_s`` at the largest flow of the cycle, or from
+    a design GHSV (``ghsv_per_h`` with ``length_to_diameter``, :func:`ghsv_diameter`), capped
     by ``max_diameter_mm``. With ``diameter_from_dp = true`` the diameter is then raised until
     the sized train meets ``dp_max_kPa``: in laminar channels at a given catalyst volume the
     pressure drop scales as V/D^4 (Hagen-Poiseuille), so D <- D (dp/budget)^(1/4), repeated
@@ -437,6 +458,8 @@ def _size_with_diameter(case, progress, curves: bool = True) -> SizingResult:
     D = case.train.bricks[0].diameter
     if sz.get("face_velocity_m_s"):
         D = _face_velocity_diameter(case, mode_inlets(case), sz["face_velocity_m_s"])
+    elif sz.get("ghsv_per_h"):
+        D = ghsv_diameter(mode_inlets(case), sz["ghsv_per_h"], sz.get("length_to_diameter", 1.0))
     D_max = sz["max_diameter_mm"] / 1e3 if sz.get("max_diameter_mm") else math.inf
     D = min(D, D_max)
     res = _size_at(case, D, progress, curves)

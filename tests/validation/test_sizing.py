@@ -207,3 +207,34 @@ def test_size_command_json_and_report(tmp_path, capsys):
     assert {"size.json", "sizing_curves.csv", "sizing_curves.png", "margins.csv",
             "summary.json", "SAFETY.txt"} <= names
     assert (out / "sizing_curves.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_ghsv_diameter_rule(tmp_path):
+    """The GHSV diameter rule: an SCR section of that diameter and the given length/diameter
+    ratio has the design GHSV at the largest normal flow of the cycle (GHSV = Q_N / V, the trade
+    definition, through the one GHSV function); the sizing then uses that diameter."""
+    from aftertreat.evaluate import mode_inlets
+    from aftertreat.sizing import ghsv_diameter
+    from aftertreat.train import ghsv_per_h
+    case = parse_run_case(case_data(tmp_path, ghsv_per_h=15000.0, length_to_diameter=1.5),
+                          str(tmp_path / "c.toml"))
+    inlets = mode_inlets(case)
+    D = ghsv_diameter(inlets, 15000.0, 1.5)
+    V = math.pi * D ** 2 / 4 * (1.5 * D)
+    q_max = max((inl[3] for inl in inlets), key=lambda s: s.total)
+    assert ghsv_per_h(q_max, V) == pytest.approx(15000.0, rel=1e-12)
+    res = size_case(case, curves=False)
+    assert res.train.bricks[0].diameter == pytest.approx(D, rel=1e-12)
+
+
+@pytest.mark.parametrize("extra, key", [
+    ({"ghsv_per_h": 20000.0, "face_velocity_m_s": 4.0}, "sizing.ghsv_per_h"),
+    ({"length_to_diameter": 1.0}, "sizing.length_to_diameter"),
+    ({"ghsv_per_h": -5.0}, "sizing.ghsv_per_h"),
+])
+def test_bad_diameter_rule_named(tmp_path, extra, key):
+    """Conflicting or out-of-range diameter rules are rejected with the key named."""
+    from aftertreat.errors import InputError
+    with pytest.raises(InputError) as e:
+        parse_run_case(case_data(tmp_path, **extra), str(tmp_path / "c.toml"))
+    assert e.value.key == key
