@@ -155,7 +155,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
     dp = max(m.solution.dp_Pa for m in res.run.modes) / 1e3
     con.print(f"total {res.train.volume * 1e3:.0f} L; cycle NOx {c['NOx_g_kWh']:.3f} g/kWh, "
               f"N2O {c['N2O_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppmvd_max']:.2f} "
-              f"ppmvd; back-pressure {dp:.2f} kPa (worst mode)"
+              f"ppmvd as measured; back-pressure {dp:.2f} kPa (worst mode)"
               + (f"; cost {res.cost:.1f}" if res.cost is not None else ""))
     if res.feasible:
         con.print("[green]feasible[/green]; binding limits: " + ("; ".join(res.binding) or
@@ -171,8 +171,8 @@ def _print_size(res, safety: str, report: str | None) -> None:
     for col in ("limit", "mode", "value", "limit", "unit", "margin %"):
         L.add_column(col, justify="right" if col in ("value", "limit", "margin %") else "left")
     for r in res.margins:
-        L.add_row(_limit_name(r), r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]), r["unit"],
-                  _num(r["margin_pct"]))
+        L.add_row(_limit_name(r), r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]),
+                  _unit(r), _num(r["margin_pct"]))
     con.print(L)
     con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
               f"{res.seconds:.1f} s")
@@ -219,7 +219,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
         for r in result.limits:
             L.add_row(_limit_name(r) + (" *" if r.get("confidence") == "from memory" else ""),
                       r.get("mode") or "cycle", _num(r.get("value")), _num(r.get("limit")),
-                      r["unit"], "[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
+                      _unit(r), "[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
         con.print(L)
         if any(r.get("confidence") == "from memory" for r in result.limits):
             con.print("* limit value recalled from memory, not read in the source: check it")
@@ -240,6 +240,13 @@ def _limit_name(r: dict) -> str:
     """A limit row's name without the ', mode X' suffix (the table has a mode column)."""
     name, suffix = r["name"], f", mode {r.get('mode')}"
     return name[: -len(suffix)] if r.get("mode") and name.endswith(suffix) else name
+
+
+def _unit(r: dict) -> str:
+    """A limit row's unit with its reference O2 (``ppmvd @15% O2``), so it is not read as the
+    as-measured value."""
+    o2 = r.get("o2_ref_pct")
+    return r["unit"] if o2 is None else f"{r['unit']} @{o2:g}% O2"
 
 
 def _num(v) -> str:

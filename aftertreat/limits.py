@@ -288,7 +288,8 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
              round_limit: bool | None = None) -> list[dict]:
     """Check ``modes`` against every row of ``limit_set``.
 
-    Returns one dict per check: ``name, value, limit, unit, pass, source, confidence, mode``
+    Returns one dict per check: ``name, value, limit, unit, o2_ref_pct, pass, source, confidence,
+    mode``
     (``mode`` None for cycle rows) plus ``quantity, clause, note``. Cycle values are rounded per
     the set's ``round_decimals`` before comparison; the limit is rounded too only if
     ``round_limit`` (argument, else the set's default). Per-mode rows skip modes flagged
@@ -300,8 +301,8 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
     p_rated = rated_power_kW if rated_power_kW is not None else max(m.power_kW for m in modes)
     out, cyc = [], None
     for row in limit_set.rows:
-        base = {"unit": row.unit, "source": row.source, "confidence": row.confidence,
-                "quantity": row.quantity, "clause": row.clause}
+        base = {"unit": row.unit, "o2_ref_pct": row.o2_ref_pct, "source": row.source,
+                "confidence": row.confidence, "quantity": row.quantity, "clause": row.clause}
         lim = _limit(row, rated_speed_rpm) * row.factor
         if row.scope == "cycle":
             cyc = cyc or cycle_values(modes, gwp_set)

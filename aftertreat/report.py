@@ -204,7 +204,8 @@ def _plot_curves(res) -> bytes:
     plt = _figure()
     t = res.curve_table()
     fig, axes = plt.subplots(2, 4, figsize=(15, 7))
-    cols = (("NOx_g_kWh", "cycle NOx [g/kWh]"), ("NH3_slip_ppmvd_max", "max NH3 slip [ppmvd]"),
+    cols = (("NOx_g_kWh", "cycle NOx [g/kWh]"),
+            ("NH3_slip_ppmvd_max", "max NH3 slip [ppmvd, as measured]"),
             ("N2O_g_kWh", "cycle N2O [g/kWh]"), ("dp_kPa_max", "back-pressure, worst mode [kPa]"))
     scr_v = sum(b.volume for b in res.train.bricks if b.role == "SCR") * 1e3
     asc_v = sum(b.volume for b in res.train.bricks if b.role != "SCR") * 1e3
@@ -218,7 +219,9 @@ def _plot_curves(res) -> bytes:
             ax.set_title(title, fontsize=9)
             ax.set_xlabel(label, fontsize=8)
             ax.grid(alpha=0.3)
-    fig.suptitle(f"{res.case.title}\nsizing curves around the sized design (dashed)",
+    from .sizing import COARSE_GRID
+    fig.suptitle(f"{res.case.title}\nsizing curves around the sized design (dashed), on the "
+                 f"search grid ({COARSE_GRID[0]} cells per brick, within 1-2 % of the case's)",
                  fontsize=9)
     fig.tight_layout(rect=(0, 0, 1, 0.93))
     return _png(fig)

@@ -569,7 +569,7 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         lim_m = r["limit"] * (1.0 - m)
         ratio = _design_value(res, r) / lim_m if lim_m > 0 else math.inf
         margins.append({"name": r["name"], "mode": r.get("mode"), "value": r["value"],
-                        "limit": r["limit"], "unit": r["unit"],
+                        "limit": r["limit"], "unit": r["unit"], "o2_ref_pct": r.get("o2_ref_pct"),
                         "margin_pct": 100.0 * (1.0 - r["value"] / r["limit"])
                         if r["limit"] > 0 else None, "pass_with_design_margin": ratio <= 1.0})
         if ratio > 1.0:
@@ -645,17 +645,19 @@ def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> lis
     around the answer (``search``: points of the search itself)."""
     rows = []
     for (Ls, La), res in designs.cache.items():
-        sweep = ("SCR" if abs(La - L_asc) <= 1e-6 * max(L_asc, 1e-9) else
-                 "ASC" if abs(Ls - L_scr) <= 1e-6 * L_scr else "search")
+        same_asc = abs(La - L_asc) <= 1e-6 * max(L_asc, 1e-9)
+        same_scr = abs(Ls - L_scr) <= 1e-6 * L_scr
+        # the sized design itself belongs to both sweeps
+        sweeps = [s for s, on in (("SCR", same_asc), ("ASC", same_scr)) if on] or ["search"]
         c = res.cycle
         t = designs.train(Ls, La)
-        rows.append({"sweep": sweep, "SCR_length_mm": Ls * 1e3, "ASC_length_mm": La * 1e3,
-                     "SCR_volume_L": sum(b.volume for b in t.bricks if b.role == "SCR") * 1e3,
-                     "ASC_volume_L": sum(b.volume for b in t.bricks if b.role != "SCR") * 1e3,
-                     "total_volume_L": t.volume * 1e3, "NOx_g_kWh": c["NOx_g_kWh"],
-                     "NH3_slip_ppmvd_max": c["NH3_slip_ppmvd_max"], "N2O_g_kWh": c["N2O_g_kWh"],
-                     "dp_kPa_max": max(m.solution.dp_Pa for m in res.modes) / 1e3,
-                     "NOx_ratio": _worst(res, ("NOx",), margin),
-                     "NH3_ratio": _worst(res, ("NH3",), margin),
-                     "converged": res.converged})
+        rows += [{"sweep": sweep, "SCR_length_mm": Ls * 1e3, "ASC_length_mm": La * 1e3,
+                  "SCR_volume_L": sum(b.volume for b in t.bricks if b.role == "SCR") * 1e3,
+                  "ASC_volume_L": sum(b.volume for b in t.bricks if b.role != "SCR") * 1e3,
+                  "total_volume_L": t.volume * 1e3, "NOx_g_kWh": c["NOx_g_kWh"],
+                  "NH3_slip_ppmvd_max": c["NH3_slip_ppmvd_max"], "N2O_g_kWh": c["N2O_g_kWh"],
+                  "dp_kPa_max": max(m.solution.dp_Pa for m in res.modes) / 1e3,
+                  "NOx_ratio": _worst(res, ("NOx",), margin),
+                  "NH3_ratio": _worst(res, ("NH3",), margin),
+                  "converged": res.converged} for sweep in sweeps]
     return sorted(rows, key=lambda r: (r["SCR_length_mm"], r["ASC_length_mm"]))
