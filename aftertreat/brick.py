@@ -3,12 +3,27 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 from .catalyst import Catalyst
 from .errors import InputError
 from .geometry import Substrate
 
-__all__ = ["Brick", "WASHCOAT_MODELS"]
+__all__ = ["Brick", "WASHCOAT_MODELS", "solid_heat_capacity_J_m3K"]
+
+
+@lru_cache(maxsize=1)
+def _materials() -> dict:
+    import tomllib
+    from importlib import resources
+    return tomllib.loads(resources.files("aftertreat").joinpath("data/materials.toml")
+                         .read_text(encoding="utf-8"))
+
+
+def solid_heat_capacity_J_m3K(kind: str) -> float:
+    """Volumetric heat capacity of a substrate kind's solid [J/(m^3 K)] (from memory, +-30 %:
+    see ``data/materials.toml``)."""
+    return float(_materials()[kind]["solid_heat_capacity_MJ_m3K"]) * 1e6
 
 #: How diffusion in the catalytic layer is treated.
 #: ``effectiveness``: slab Thiele modulus from the local linearised rate, eta = tanh(phi)/phi
@@ -37,6 +52,8 @@ class Brick:
     film : ``False`` switches film resistance off (kinetic limit; for analytical checks).
     apparent_friction : include the entrance-region apparent friction (Shah 1978).
     heat_loss_W_m2K : heat loss coefficient through the can to ambient, on the can surface.
+    heat_capacity_kJ_m3K : heat capacity of the brick per m^3 of brick (transient model);
+        ``None`` takes (1 - OFA) x the substrate kind's solid value (``data/materials.toml``).
     """
     name: str
     substrate: Substrate
@@ -52,6 +69,7 @@ class Brick:
     apparent_friction: bool = True
     heat_loss_W_m2K: float = 0.0
     T_ambient: float = 298.15
+    heat_capacity_kJ_m3K: float | None = None
     extra: dict = field(default_factory=dict)
 
     def __post_init__(self):
@@ -83,9 +101,22 @@ class Brick:
         if int(self.nodes_per_layer) < 1:
             raise InputError("expected at least 1 node per layer",
                              key=f"{self.name}.nodes_per_layer", value=self.nodes_per_layer)
+        if self.heat_capacity_kJ_m3K is not None and not (
+                isinstance(self.heat_capacity_kJ_m3K, (int, float))
+                and 10.0 <= self.heat_capacity_kJ_m3K <= 10000.0):
+            raise InputError("expected a heat capacity in 10..10000 kJ/(m3 K) per m3 of brick",
+                             key=f"{self.name}.heat_capacity_kJ_m3K",
+                             value=self.heat_capacity_kJ_m3K)
         if self.heat_loss_W_m2K < 0:
             raise InputError("expected a heat-loss coefficient >= 0",
                              key=f"{self.name}.heat_loss_W_m2K", value=self.heat_loss_W_m2K)
+
+    @property
+    def heat_capacity_J_m3K(self) -> float:
+        """Heat capacity of the brick per m^3 of brick [J/(m^3 K)] (see the class docstring)."""
+        if self.heat_capacity_kJ_m3K is not None:
+            return self.heat_capacity_kJ_m3K * 1e3
+        return (1.0 - self.substrate.ofa) * solid_heat_capacity_J_m3K(self.substrate.kind)
 
     @property
     def frontal_area(self) -> float:

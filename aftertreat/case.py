@@ -50,7 +50,7 @@ _EXHAUST = {"mass_flow", "mass_flow_kg_s", "molar_flow", "molar_flow_mol_s", "T"
 _BRICK = {"name", "catalyst", "substrate", "cpsi", "wall", "wall_mm", "wall_mil", "washcoat_um",
           "gap", "gap_mm", "plate", "plate_mm", "length", "length_mm", "diameter", "diameter_mm",
           "activity", "cells", "nodes_per_layer", "washcoat_model", "sherwood",
-          "heat_loss_W_m2K"}
+          "heat_loss_W_m2K", "heat_capacity_kJ_m3K"}
 
 
 @dataclass
@@ -236,7 +236,8 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
                              file=file)
         return Brick(name=name, substrate=sub, catalysts=tuple(c for c, _ in layers),
                      length=length, diameter=diameter, activity=float(act), washcoat=wm,
-                     heat_loss_W_m2K=float(b.get("heat_loss_W_m2K", 0.0)), **kw)
+                     heat_loss_W_m2K=float(b.get("heat_loss_W_m2K", 0.0)),
+                     heat_capacity_kJ_m3K=b.get("heat_capacity_kJ_m3K"), **kw)
     except InputError as exc:
         if exc.file:
             raise

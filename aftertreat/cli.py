@@ -111,6 +111,8 @@ def _run(args) -> int:
     from .cyclecase import load_run_case
     from .evaluate import run_case
     case = load_run_case(args.case, args.set)
+    if case.transient is not None:
+        return _run_transient(args, case)
     result = _with_status(args, "solving", lambda p: run_case(
         case, progress=None if p is None else lambda i, n, name: p(f"mode {i + 1}/{n}: {name}")))
     from .report import write_report
@@ -120,6 +122,79 @@ def _run(args) -> int:
         return _fail(1, f"solver did not converge in mode(s) {', '.join(bad)}; their numbers "
                         "are flagged")
     return 0
+
+
+def _run_transient(args, case) -> int:
+    """A case with [transient]: its steady modes (if it has a cycle), then the time run."""
+    from .evaluate import run_case
+    from .output import SAFETY_NOTE, to_json
+    from .report import write_report, write_transient_report
+    from .transient_run import run_transient
+    steady = None
+    if case.cycle is not None:
+        steady = _with_status(args, "solving", lambda p: run_case(case, progress=None if p is None
+                              else lambda i, n, name: p(f"mode {i + 1}/{n}: {name}")))
+    trun = _with_status(args, "transient", lambda p: run_transient(
+        case, progress=None if p is None else lambda i, n: p(f"step {i}/{n - 1}")
+        if i % 50 == 0 else None))
+    obj = steady.to_json() if steady is not None else trun.run_json()
+    obj["transient"] = trun.summary()
+    if args.report:
+        if steady is not None:
+            write_report(steady, args.report)
+        write_transient_report(trun, obj, args.report)
+    if args.json:
+        print(to_json(obj))
+    else:
+        if steady is not None:
+            _print_run(steady, "", None)
+        _print_transient(trun, obj["transient"], SAFETY_NOTE, args.report)
+    converged = trun.result.all_converged and (steady is None or steady.converged)
+    if not converged:
+        return _fail(1, "the solver did not converge at some steps or modes; their numbers are "
+                        "flagged")
+    return 0
+
+
+def _print_transient(trun, s: dict, safety: str, report) -> None:
+    from rich import box
+    from rich.console import Console
+    from rich.table import Table
+    con = Console()
+    case = trun.case
+    if case.cycle is None:
+        con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"transient run: {s['source']}; {s['duration_s']:.0f} s in {s['steps']} steps; "
+              f"dosing {case.dosing['method']}, control {s['dosing_control']}")
+    wk = s["work_kWh"]
+    con.print(f"work {wk:.1f} kWh; emitted NOx {s['NOx_g']:.1f} g, N2O {s['N2O_g']:.1f} g, "
+              f"NH3 {s['NH3_g']:.1f} g"
+              + (f" = {s['NOx_g_kWh']:.3f} / {s['N2O_g_kWh']:.3f} / {s['NH3_g_kWh']:.3f} g/kWh"
+                 if wk > 0 else ""))
+    con.print(f"NH3 slip: peak {s['NH3_slip_ppmvd_peak']:.1f} ppmvd as measured at "
+              f"t = {s['NH3_slip_ppmvd_peak_t_s']:.0f} s, time average "
+              f"{s['NH3_slip_ppmvd_mean']:.2f} ppmvd")
+    acc = s["NH3_account_mol"]
+    con.print(f"NH3 account (mol): in {acc['in_mol']:.2f} = out {acc['out_mol']:.2f} + "
+              f"destroyed {acc['reacted_mol']:.2f} + stored {acc['stored_change_mol']:+.2f} "
+              f"(imbalance {acc['imbalance_mol']:.1e})")
+    if s["limits"]:
+        L = Table(title="Limits over the run", box=box.SIMPLE_HEAD, pad_edge=False)
+        for col in ("limit", "value / peak", "mean", "limit", "unit", "time above s", "result"):
+            L.add_column(col, justify="left" if col in ("limit", "unit") else "right")
+        for r in s["limits"]:
+            L.add_row(r["name"], _num(r.get("value", r.get("peak"))), _num(r.get("mean")),
+                      _num(r.get("limit")), _unit(r),
+                      f"{r['time_above_s']:.0f}" if "time_above_s" in r else "-",
+                      ("[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
+                      if r.get("limit") is not None else "n/a")
+        con.print(L)
+    rtf = s.get("real_time_factor")
+    con.print(f"solved in {s['solve_s']:.1f} s" + (f" ({rtf:.0f} x real time)" if rtf else "")
+              + ("" if s["converged"] else " [red]with steps that did not converge[/]"))
+    if report:
+        con.print(f"report written to {report}/")
+    con.print(f"[dim]{safety}[/dim]")
 
 
 def _size(args) -> int:

@@ -55,6 +55,7 @@ from pathlib import Path
 import numpy as np
 
 from .case import _unknown, apply_set, parse_brick, read_toml
+from .transient_run import parse_transient
 from .errors import InputError, did_you_mean
 from .train import Train
 
@@ -62,7 +63,7 @@ __all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICAT
 
 APPLICATIONS = ("marine propulsion", "auxiliary genset", "stationary engine", "gas turbine")
 _TOP = {"title", "note", "engine", "fuel", "cycle", "engine_out", "dosing", "brick", "limits",
-        "sizing"}
+        "sizing", "transient"}
 _ENGINE = {"application", "rated_power_kW", "rated_speed_rpm", "name"}
 _FUEL = {"NH3", "H2", "diesel", "natural_gas", "cracked_H2"}
 _CYCLE = {"iso8178", "mode"}
@@ -101,10 +102,12 @@ class RunCase:
     file: str
     data: dict
     notes: list[str] = field(default_factory=list)
+    #: the validated [transient] table (aftertreat.transient_run), or None
+    transient: dict | None = None
 
     @property
     def n_modes(self) -> int:
-        return len(self.cycle.modes)
+        return 0 if self.cycle is None else len(self.cycle.modes)
 
 
 def _per_mode(table: dict, key: str, n: int, file: str, pre: str, *, lo=None, hi=None,
@@ -327,9 +330,19 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     _unknown(data, _TOP, file, "")
     engine = _engine(data, file)
     fuel = _fuel(data, file)
-    cycle = _cycle(data, file)
-    n = len(cycle.modes)
-    engine_out = _engine_out(data, n, file)
+    trace_only = isinstance(data.get("transient"), dict) and "trace" in data["transient"] \
+        and "cycle" not in data
+    if trace_only:             # a measured time trace stands in for the cycle and engine-out map
+        for k in ("engine_out", "sizing"):
+            if k in data:
+                raise InputError("a trace case (transient.trace, no [cycle]) has no "
+                                 f"[{k}]: the trace gives the engine-out exhaust", key=k,
+                                 file=file)
+        cycle, engine_out, n = None, None, 1
+    else:
+        cycle = _cycle(data, file)
+        n = len(cycle.modes)
+        engine_out = _engine_out(data, n, file)
     dosing = _dosing(data, n, file)
     bricks = data.get("brick")
     if not isinstance(bricks, list) or not bricks:
@@ -338,7 +351,9 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     sets, gwp = _limits(data, file)
     return RunCase(title=str(data.get("title", Path(file).stem)), engine=engine, fuel=fuel,
                    cycle=cycle, engine_out=engine_out, dosing=dosing, train=train,
-                   limit_sets=sets, gwp_set=gwp, sizing=_sizing(data, file), file=file, data=data)
+                   limit_sets=sets, gwp_set=gwp, sizing=_sizing(data, file), file=file, data=data,
+                   transient=parse_transient(data, file, has_cycle=cycle is not None,
+                                             dosing_method=dosing["method"]))
 
 
 def load_run_case(path, sets: list[str] | None = None) -> RunCase:

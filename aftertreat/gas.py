@@ -44,7 +44,7 @@ __all__ = ["GasProperties"]
 
 _X_TRACE = 1e-12
 #: Mole-fraction step to which :meth:`GasProperties.for_stream` rounds a composition.
-COMPOSITION_STEP = 1e-4
+COMPOSITION_STEP = 1e-3
 
 
 @lru_cache(maxsize=1)

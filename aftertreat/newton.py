@@ -105,7 +105,7 @@ def jacobian(model, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
                 jl = int(np.searchsorted(model.layer_nodes[k], j))
                 dr = (rates[k][copy][:, jl, :] - rates[k][0][:, jl, :]) / hj       # [n, nrxn]
                 xi = vol * model.node_frac[j] * dr
-                B[:, :NSP, col] = -(xi @ model.nu_equiv[k]) / model.F_in_tot
+                B[:, :NSP, col] = -(xi @ model.nu_flow[k]) / model.F_in_tot
                 B[:, model.iTs, col] = -(xi * dH[k]).sum(axis=1) / hA
     C = np.empty((n, nv, ng))
     C[:, :, :NSP] = (dR[o:o + NSP] / hF.T[:, :, None]).transpose(1, 2, 0)
@@ -114,7 +114,9 @@ def jacobian(model, x, R, F_in, Tg_in, fd_step, ptc_diag=None):
         # implicit Euler on dx/dt = R (coverage and solid-temperature rows are written so that
         # the residual is the rate of change): (J - I/tau) dx = -R
         B[:, np.arange(nv), np.arange(nv)] -= ptc_diag
-    if nv <= _INVERT_UP_TO:             # small blocks: explicit inverses, applied by one einsum
+    if nv <= _INVERT_UP_TO or getattr(model, "prefer_inverse", False):
+        # explicit inverses, applied by one einsum: for small blocks, or where one Jacobian
+        # serves many chord steps (transient runs)
         Binv = np.linalg.inv(B)
         return Binv, None, Binv @ C
     lu = scipy.linalg.lu_factor(B, check_finite=False)      # batched over cells

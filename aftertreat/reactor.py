@@ -31,6 +31,17 @@ r_r / c_s,k (Thiele 1939; Aris 1975, *The Mathematical Theory of Diffusion and R
 Permeable Catalysts*). ``resolved`` puts graded finite volumes across every layer with flux
 continuity between layers and no flux at the wall.
 
+Transient (:mod:`aftertreat.transient`): the gas stays quasi-steady while coverage and solid
+temperature evolve; an implicit-Euler step of length dt adds the storage terms to the same
+residual (:meth:`_BrickModel.begin_step`)::
+
+      (theta - theta_old)/dt = sum_r nu_site[r] r_r / Omega
+      C_cell (T_s - T_s,old)/dt = sum_r (-dH_r) xi_r - F c_p (T_g,j - T_g,j-1) - U pi D dz (T_s - T_amb)
+
+and the gas flows then change by the gas stoichiometry (``nu_gas``: adsorption takes NH3 out of
+the gas, desorption gives it back) instead of ``nu_equiv``. Reaction heats still count stored NH3
+as gas NH3: the heat of adsorption, released on storage and taken back on release, is left out.
+
 Numerics (:mod:`aftertreat.newton`). The unknowns of all cells are solved together by Newton's
 method. The Jacobian is block
 lower-bidiagonal along the brick; its blocks come from forward differences evaluated in one
@@ -108,11 +119,7 @@ class BrickSolution:
     def reaction_extents(self) -> list[np.ndarray]:
         """Reaction extents per layer [ncell, nrxn] in mol/s (rates x catalyst volume),
         computed on demand from the solved state."""
-        m = self.model
-        rates, *_ = m.layer_rates(self.state, *m.inflow(self.state))
-        vol = m.A * m.dz
-        return [(vol * m.node_frac[m.layer_nodes[k]][None, :, None] * rates[k]).sum(axis=1)
-                for k in range(len(m.mechs))]
+        return self.model.extents(self.state)
 
     def ppm_profile(self, species: str) -> np.ndarray:
         """Wet ppm of ``species`` at every cell outlet."""
@@ -221,11 +228,51 @@ class _BrickModel:
         self.film_idx = np.array(self.film, dtype=int)
         self.nu_gas_f = [m.nu_gas[:, self.film_idx] for m in self.mechs]
         self.nu_equiv = [m.nu_equiv for m in self.mechs]
+        #: stoichiometry of the gas-flow rows: nu_equiv at steady state, nu_gas in a time step
+        self.nu_flow = self.nu_equiv
+        #: implicit-Euler step (x_old, dt [s], heat capacity per cell [J/K]) or None (steady)
+        self.step = None
+        self._last_rates = None                   # (x, rates) of the last single-copy residual
         self.key_idx = []
         for m in self.mechs:
             keys = np.array([(-1 if r.diffusion_key is None else r.diffusion_key)
                              for r in m.reactions])
             self.key_idx.append(keys)
+
+    # -- transient ----------------------------------------------------------------------------
+    def begin_transient(self) -> None:
+        """Switch the gas rows to the gas stoichiometry (storage is then not at steady state)."""
+        self.nu_flow = [m.nu_gas for m in self.mechs]
+
+    def begin_step(self, x_old: np.ndarray, dt: float, heat_capacity_J_m3K: float) -> None:
+        """Make the residual that of an implicit-Euler step of ``dt`` [s] from ``x_old``; the
+        brick's solid has ``heat_capacity_J_m3K`` per m^3 of brick."""
+        self.step = (x_old, float(dt), heat_capacity_J_m3K * self.A * self.dz)
+
+    def set_inlet(self, inlet: Stream) -> None:
+        """A new inlet state for the same brick (each time step of a transient): flow scaling,
+        gas tables and the transfer numbers follow it."""
+        self.inlet = inlet
+        self.p = inlet.p
+        self.F_in_tot = inlet.total
+        self.gas = GasProperties.for_stream(inlet.F)
+        self.cp_ref = float(self.gas.cp_molar(inlet.T))
+        # film transfer numbers (Graetz coordinate ~ 1/flow): recomputed when the flow moved by
+        # more than 1 % or the temperature by 2 K since they were last computed (the entrance-
+        # region Sherwood number then changes by < 0.5 %; Sh ~ Gz^(1/3) at most)
+        m0, T0 = self._transfer_at
+        if abs(inlet.mass_flow / m0 - 1.0) > 0.01 or abs(inlet.T - T0) > 2.0:
+            notes = list(self.notes)
+            self._transfer_numbers(inlet)
+            self.notes = notes
+
+    def stored_nh3_mol(self, x: np.ndarray) -> float:
+        """NH3 held on the storage sites [mol]: sum over nodes of Omega theta V_node."""
+        if not self.ns:
+            return 0.0
+        th = x[:, self.ith0:].reshape(self.n, self.nnode, self.ns)
+        v_node = self.A * self.dz * self.node_frac                      # [nnode] m^3 of layer
+        return float(np.sum(th * (self.cap * self.site_used)[None] * v_node[None, :, None]))
 
     def _transfer_numbers(self, inlet: Stream):
         """Cell-mean Sherwood and Nusselt numbers from the inlet state (Graetz coordinate)."""
@@ -235,6 +282,7 @@ class _BrickModel:
         rho = float(self.gas.density(T, self.p))
         u = inlet.mass_flow / (rho * self.A * sub.ofa)          # channel velocity [m/s]
         self.u_channel = u
+        self._transfer_at = (inlet.mass_flow, inlet.T)
         D = self.gas.diffusivity(T, self.p)[self.film]          # [nf]
         alpha = float(self.gas.conductivity(T) / (rho * self.gas.cp_mass(T)))
         method = b.sherwood
@@ -250,6 +298,8 @@ class _BrickModel:
 
     # -- state packing -------------------------------------------------------------------------
     def initial_state(self) -> np.ndarray:
+        if self.step is not None:               # a time step restarts from where it began
+            return self.step[0].copy()
         x = np.zeros((self.n, self.nv))
         inl = self.inlet
         x[:, :NSP] = inl.F
@@ -371,7 +421,7 @@ class _BrickModel:
             nodes = self.layer_nodes[k]
             w = self.node_frac[nodes][None, :, None]                   # brick volume fraction
             xi = (vol * w * rates[k]).sum(axis=1)                      # [n, nrxn] mol/s
-            dF += xi @ self.nu_equiv[k]
+            dF += xi @ self.nu_flow[k]
             dH.append(m.reaction_enthalpy(Ts))
             Q -= (xi * dH[-1]).sum(axis=1)
             prod[:, nodes, :] = (w / self.a) * (rates[k] @ self.nu_gas_f[k])
@@ -385,6 +435,10 @@ class _BrickModel:
                 R[:, self.ith0:].reshape(n, self.nnode, self.ns)[:, nodes, :] = R_th
             elif self.ns:
                 R[:, self.ith0:].reshape(n, self.nnode, self.ns)[:, nodes, :] = th[:, nodes, :]
+        if self.step is not None and self.ns:
+            x_old = self.step[0] if isinstance(rows, slice) else self.step[0][rows]
+            used = self.site_used.ravel()
+            R[:, self.ith0:] -= used * (x[:, self.ith0:] - x_old[:, self.ith0:]) / self.step[1]
         R[:, :NSP] = (F - F_in - dF) / self.F_in_tot
         # transfer coefficients at the gas temperature
         _, cond, D_gas = self.gas.transport(Tg, self.p)
@@ -398,6 +452,9 @@ class _BrickModel:
         R[:, self.iTg] = Tg - Ts - (Tg_in - Ts) * np.exp(-hA / Fcp)
         q = Fcp * (Tg - Tg_in)
         loss = self.loss_UA * (Ts - self.brick.T_ambient)
+        if self.step is not None:
+            x_old = self.step[0] if isinstance(rows, slice) else self.step[0][rows]
+            Q = Q - self.step[2] * (Ts - x_old[:, self.iTs]) / self.step[1]
         R[:, self.iTs] = (Q - q - loss) / hA
         # film and washcoat diffusion
         cbf = cb[:, self.film_idx]
@@ -429,7 +486,22 @@ class _BrickModel:
             Rc[:] = (J[:, :-1, :] - J[:, 1:, :] + prod) / (G * ctot[:, None, None])
         if want_rates:
             return R, rates, hA, dH
+        if isinstance(rows, slice):
+            self._last_rates = (x, rates)
         return R
+
+    def rates_at(self, x) -> list:
+        """Layer rates at the state ``x`` (those of the last residual call when it was at x)."""
+        if self._last_rates is not None and self._last_rates[0] is x:
+            return self._last_rates[1]
+        return self.layer_rates(x, *self.inflow(x))[0]
+
+    def extents(self, x) -> list:
+        """Reaction extents per layer [ncell, nrxn] in mol/s at the state ``x``."""
+        rates = self.rates_at(x)
+        vol = self.A * self.dz
+        return [(vol * self.node_frac[self.layer_nodes[k]][None, :, None] * rates[k]).sum(axis=1)
+                for k in range(len(self.mechs))]
 
     def inflow(self, x):
         F_in = np.empty((self.n, NSP))

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from .output import SAFETY_NOTE, to_json, write_atomic
 
-__all__ = ["write_report", "write_size_report", "to_toml"]
+__all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml"]
 
 
 def _toml_value(v) -> str:
@@ -224,4 +224,61 @@ def _plot_curves(res) -> bytes:
                  f"search grid ({COARSE_GRID[0]} cells per brick, within 1-2 % of the case's)",
                  fontsize=9)
     fig.tight_layout(rect=(0, 0, 1, 0.93))
+    return _png(fig)
+
+
+def write_transient_report(trun, run_obj: dict, folder: str | Path) -> list[Path]:
+    """Write a transient run into ``folder``: ``transient.csv`` (the time series, units in the
+    column names), ``transient.png``, ``summary.json`` (the run object with its ``transient``
+    section), ``case_as_run.toml`` and ``SAFETY.txt``."""
+    folder = Path(folder)
+    written = []
+
+    def put(name, text):
+        write_atomic(folder / name, text)
+        written.append(folder / name)
+
+    put("transient.csv", _csv(trun.table()))
+    put("transient.png", _plot_transient(trun))
+    put("summary.json", to_json(run_obj) + "\n")
+    put("case_as_run.toml", f"# {trun.case.title}\n# as run (after any --set overrides)\n"
+        + to_toml(trun.case.data))
+    put("SAFETY.txt", SAFETY_NOTE + "\n")
+    return written
+
+
+def _plot_transient(trun) -> bytes:
+    """Outlet NOx, NH3 and N2O (ppmvd) with the concentration limits; temperatures; stored NH3
+    per brick; the power and the ANR at the inlet."""
+    plt = _figure()
+    df = trun.table()
+    t = df["t_s"] / 60.0
+    fig, ax = plt.subplots(4, 1, figsize=(11, 10), sharex=True)
+    for col, c in (("NOx_out_ppmvd", "#4a7ab5"), ("NH3_out_ppmvd", "#c0392b"),
+                   ("N2O_out_ppmvd", "#7d3c98")):
+        ax[0].plot(t, df[col], color=c, lw=1.0, label=col.replace("_out_ppmvd", ""))
+    for r in trun.summary()["limits"]:
+        if r.get("unit") == "ppmvd" and r.get("limit") is not None and not r.get("o2_ref_pct"):
+            ax[0].axhline(r["limit"], color="grey", ls="--", lw=0.8)
+    ax[0].set_ylabel("outlet [ppmvd,\nas measured]")
+    ax[0].legend(fontsize=8, loc="upper right")
+    ax[1].plot(t, df["T_in_C"], color="black", lw=1.0, label="gas in")
+    for name in trun.result.brick_names:
+        ax[1].plot(t, df[f"{name}_T_solid_mean_C"], lw=1.0, label=f"{name} solid (mean)")
+    ax[1].set_ylabel("temperature [C]")
+    ax[1].legend(fontsize=8, loc="upper right")
+    for name in trun.result.brick_names:
+        ax[2].plot(t, df[f"{name}_stored_NH3_g"], lw=1.0, label=name)
+    ax[2].set_ylabel("stored NH3 [g]")
+    ax[2].legend(fontsize=8, loc="upper right")
+    ax[3].plot(t, df["power_kW"], color="black", lw=1.0)
+    ax[3].set_ylabel("power [kW]")
+    a2 = ax[3].twinx()
+    a2.plot(t, df["ANR_in"], color="#27ae60", lw=0.8)
+    a2.set_ylabel("ANR at the inlet [-]", color="#27ae60")
+    ax[3].set_xlabel("time [min]")
+    for a in ax:
+        a.grid(alpha=0.3)
+    fig.suptitle(f"{trun.case.title}\n{trun.timeline.source}", fontsize=9)
+    fig.tight_layout(rect=(0, 0, 1, 0.95))
     return _png(fig)
