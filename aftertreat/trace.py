@@ -25,7 +25,7 @@ import numpy as np
 from .combustion import exhaust_from_measurements
 from .errors import InputError, did_you_mean
 from .stream import Stream
-from .units import ureg
+from .units import checked_unit_text, ureg
 
 __all__ = ["QUANTITIES", "Trace", "read_trace"]
 
@@ -137,9 +137,12 @@ def _unit(text: str, q: str, header: str, file: str):
     """The pint unit of column ``header``, checked against quantity ``q``'s dimension."""
     reg = ureg()
     si = QUANTITIES[q][0]
+    if not checked_unit_text(text):
+        raise InputError(f"unit '{text}' is not a plain unit (powers must be small numbers; "
+                         f"expected units of {si})", key=header, value=text, file=file)
     try:
         unit = reg.parse_units("dimensionless" if text in ("-", "") else text)
-    except Exception:
+    except Exception:    # noqa: BLE001 - pint's parser raises many kinds (TokenError, TypeError...)
         raise InputError(f"unit '{text}' is not one pint knows (expected units of {si})",
                          key=header, value=text, file=file) from None
     if reg.Quantity(1.0, unit).dimensionality != reg.Quantity(1.0, si).dimensionality:

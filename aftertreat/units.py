@@ -30,8 +30,31 @@ def _registry():
     except Exception:
         reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
     reg.define("cpsi = 1 / inch**2")
-    reg.define("ppm = 1e-6 = ppmv")
+    if "ppm" not in reg:                 # recent pint releases define ppm themselves
+        reg.define("ppm = 1e-6 = ppmv")
+    elif "ppmv" not in reg:
+        reg.define("ppmv = 1e-6")
     return reg
+
+
+_POWER = None
+
+
+def checked_unit_text(text: str) -> bool:
+    """True when a unit or quantity text is safe to hand to pint: pint evaluates arithmetic, so
+    a text such as ``2**1000**1000`` would run for ever. Powers must be small literal numbers
+    (at most two digits), with no chained powers, and the text at most 80 characters."""
+    import re
+    global _POWER
+    if _POWER is None:
+        _POWER = re.compile(r"(\*\*|\^)\s*\(?\s*(-?[0-9.]+)\s*\)?(\s*(\*\*|\^))?")
+    if len(text) > 80 or re.search(r"[0-9]{16,}", text):
+        return False
+    for m in _POWER.finditer(text):
+        if m.group(3) or len(m.group(2).lstrip("-").split(".")[0]) > 2:
+            return False
+    n_pow = len(re.findall(r"\*\*|\^", text))
+    return n_pow == len(_POWER.findall(text))
 
 
 def ureg():
@@ -55,6 +78,9 @@ def to_si(value, unit: str, *, key: str | None = None, file: str | None = None) 
         import re
         # the trade's "mil" (wall thickness) is pint's "thou"; pint's own "mil" is not a length
         text = re.sub(r"\bmils?\b", "thou", value)
+        if not checked_unit_text(text):
+            raise InputError(f"expected a plain quantity such as '450 mm' (units of {unit}); "
+                             "powers must be small numbers", key=key, value=value, file=file)
         try:
             q = reg.Quantity(text)
         except Exception:

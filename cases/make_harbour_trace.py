@@ -36,7 +36,11 @@ def decaying(events: np.ndarray, tau_s: float) -> np.ndarray:
 def make(n: int = 1800) -> dict[str, np.ndarray]:
     """The invented trace as arrays keyed by CSV header."""
     rng = np.random.default_rng(SEED)
-    noise = lambda rel: 1.0 + rel * rng.standard_normal(n)      # noqa: E731
+
+    def noise(rel: float) -> np.ndarray:
+        """Multiplicative measurement noise, relative standard deviation ``rel``."""
+        return 1.0 + rel * rng.standard_normal(n)
+
     t = np.arange(n, dtype=float)
     bt, bl = np.array(SCHEDULE, dtype=float).T
     load = np.interp(t, bt, bl)

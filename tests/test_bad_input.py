@@ -180,3 +180,25 @@ def test_non_convergence_is_reported_not_raised(deadline):
     with pytest.raises(at.ConvergenceError):
         from aftertreat.reactor import require_converged
         require_converged(sol)
+
+
+@pytest.mark.parametrize("text", ["2**1000**1000 mm", "3 m**999", "9" * 20 + " mm"])
+def test_runaway_unit_arithmetic_rejected(text):
+    """pint evaluates arithmetic in unit text; a tower of powers would never return, so such
+    text is rejected before pint sees it (our own guard; no external basis)."""
+    from aftertreat.errors import InputError
+    from aftertreat.units import to_si
+    with pytest.raises(InputError):
+        to_si(text, "m", key="length")
+
+
+def test_runaway_unit_in_a_trace_header(tmp_path):
+    """The same guard on a trace column's unit, with the column named."""
+    from aftertreat.errors import InputError
+    from aftertreat.trace import read_trace
+    f = tmp_path / "t.csv"
+    f.write_text("time [s],power [kW],exhaust flow [kg/h],T [2**1000**1000],O2 [%],H2O [%],"
+                 "NOx [ppm]\n0,100,1000,300,14,10,500\n1,100,1000,300,14,10,500\n")
+    with pytest.raises(InputError) as e:
+        read_trace(f)
+    assert "T [2**1000**1000]" in str(e.value)

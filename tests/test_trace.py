@@ -41,8 +41,8 @@ def test_units_converted_to_si(tmp_path):
     + 273.15 and 1 bar = 1e5 Pa (NIST SP 811, exact); 1 lb = 0.45359237 kg (international pound,
     exact); 1 min = 60 s; 1 % = 1e4 ppm = 0.01 (arithmetic)."""
     path = write(tmp_path, [
-        "time [min],power [MW],exhaust flow [lb/h],T [degF],p [bar],O2 [%],H2O [%],NOx [%],"
-        "NO2/NOx [%]",
+        ("time [min],power [MW],exhaust flow [lb/h],T [degF],p [bar],O2 [%],H2O [%],NOx [%],"
+         "NO2/NOx [%]"),
         "0,1.5,10000,572,1.02,13,9,0.08,10",
         "0.5,2.0,12000,662,1.03,12,10,0.1,5"])
     tr = read_trace(path)
@@ -57,8 +57,8 @@ def test_units_converted_to_si(tmp_path):
     np.testing.assert_allclose(tr.NO2_fraction, [0.10, 0.05], rtol=1e-14)
     np.testing.assert_array_equal(tr.NH3_ppm, [0, 0])
     # 1652 degF is exactly 900 degC, the upper bound: conversion round-off must not reject it
-    path = write(tmp_path, ["time [s],power [kW],exhaust flow [kg/s],T [degF],O2 [%],H2O [%],"
-                            "NOx [ppm]", "0,1,1,1652,10,10,100"], name="edge.csv")
+    head = "time [s],power [kW],exhaust flow [kg/s],T [degF],O2 [%],H2O [%],NOx [ppm]"
+    path = write(tmp_path, [head, "0,1,1,1652,10,10,100"], name="edge.csv")
     assert read_trace(path).T_K[0] == pytest.approx(1173.15, rel=1e-14)
 
 
@@ -67,8 +67,8 @@ def test_column_map_and_comments(tmp_path):
     lines skipped; an absent pressure column takes 101325 Pa (standard atmosphere, ISO 2533)."""
     path = write(tmp_path, [
         "# a comment line", "",
-        " Zeit [s] , P_el [kW], m_exh [kg/s], t_turbine_out [K], o2 [%], h2o [%], nox [ppm], "
-        "speed [rpm]",
+        (" Zeit [s] , P_el [kW], m_exh [kg/s], t_turbine_out [K], o2 [%], h2o [%], nox [ppm], "
+         "speed [rpm]"),
         "0, 10, 1.0, 500, 14, 15, 600, 900",
         "# a comment between rows",
         "5, 20, 2.0, 600, 13, 16, 700, 1000"])
@@ -158,7 +158,8 @@ def test_time_not_increasing(tmp_path):
 
 
 def test_values_out_of_range(tmp_path):
-    """T above 900 degC (project convention), O2 above 21 % (air), NO2/NOx above 1 (arithmetic)."""
+    """T above 900 degC and ppm below 0 (project conventions), O2 above 21 % (air), NO2/NOx
+    above 1 (a fraction; arithmetic), zero exhaust flow."""
     rows = [ROWS[0], ROWS[1].replace(",350,", ",950,"), ROWS[2]]
     e = _error(write(tmp_path, [HEADER] + rows))
     assert e.key == "T [degC]" and e.value == 950.0 and "0..900 degC" in str(e)
@@ -169,6 +170,8 @@ def test_values_out_of_range(tmp_path):
     assert e.key == "NO2/NOx [-]" and e.value == 1.2
     e = _error(write(tmp_path, [HEADER, ROWS[0].replace(",3600,", ",0,")]))
     assert e.key == "exhaust flow [kg/h]" and e.value == 0.0
+    e = _error(write(tmp_path, [HEADER, ROWS[0].replace(",20,10", ",-5,10")]))
+    assert e.key == "NH3 [ppm]" and e.value == -5.0 and ">= 0" in str(e)
 
 
 def test_unknown_key_in_column_map(tmp_path):
