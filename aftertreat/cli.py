@@ -61,6 +61,9 @@ def _build_parser() -> argparse.ArgumentParser:
     ct = sub.add_parser("catalysts", help="list the shipped catalysts, or show one's parameters "
                         "and their provenance")
     ct.add_argument("key", nargs="?", help="catalyst key or file")
+    tu = sub.add_parser("tui", help="open a case in the terminal UI: step through its cycle, "
+                        "what-ifs, sizing")
+    tu.add_argument("case", help="duty-cycle case file (TOML)")
     return p
 
 
@@ -78,6 +81,8 @@ def main(argv: list[str] | None = None) -> int:
             return _catalysts(args)
         if args.command == "sources":
             return _sources(args)
+        if args.command == "tui":
+            return _tui(args)
     except InputError as exc:
         return _fail(2, str(exc))
     except ConvergenceError as exc:
@@ -85,6 +90,16 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         return _fail(1, "interrupted")
     return 0
+
+
+def _tui(args) -> int:
+    """The terminal UI (package ``tui``, installed with aftertreat). The command layer may start
+    it; the library modules never import it. The case is checked first, so a bad case gives the
+    usual one-line message instead of an app with an error in it."""
+    import importlib
+    from .cyclecase import load_run_case
+    load_run_case(args.case)
+    return importlib.import_module("tui.app").main(args.case)
 
 
 def _with_status(args, label: str, compute):

@@ -1,0 +1,160 @@
+"""The terminal UI, driven headless with Textual's run_test/pilot: open a demo case, step through
+every mode, make a what-if, reject a bad edit, run sizing, save (with a backup) and export."""
+import asyncio
+import shutil
+import time
+from pathlib import Path
+
+import pytest
+
+from tui.app import CycleApp
+from tui.session import Session
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _text(app, wid: str) -> str:
+    from textual.widgets import Static
+    return str(app.query_one(wid, Static).render())
+
+
+async def _settle(app, pilot, timeout=60.0):
+    """Wait until the app's workers are done (bounded)."""
+    t0 = time.perf_counter()
+    await pilot.pause()
+    while time.perf_counter() - t0 < timeout:
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        if not app.busy:
+            return
+    raise TimeoutError("the app stayed busy")
+
+
+@pytest.fixture
+def case_copy(tmp_path):
+    """The demo genset case copied to a temporary folder (saves go there)."""
+    f = tmp_path / "genset_d2.toml"
+    shutil.copy(ROOT / "cases" / "genset_d2.toml", f)
+    return f
+
+
+def test_open_step_whatif_size_save(case_copy):
+    """The whole walk of the issue: every mode shown in turn, a what-if changes the cycle
+    figures against the baseline, a bad edit shows a message and changes nothing, sizing shows
+    its result and binding limits, save-as writes a new case (and backs up a file it would
+    replace), the caution is on screen throughout."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(160, 50)) as pilot:
+            await _settle(app, pilot)
+            assert "NH3 is toxic" in _text(app, "#caution")
+            assert "PASSES" in _text(app, "#limits") or "DOES NOT PASS" in _text(app, "#limits")
+            names = [m.name for m in app.session.result.modes]
+            seen = []
+            for _ in names:
+                seen.append(_text(app, "#profile-head").split(":")[0])
+                await pilot.press("n")
+                await pilot.pause()
+            assert seen == [f"Mode {n} ({i + 1}/{len(names)})" for i, n in enumerate(names)]
+            assert "ppm wet" in _text(app, "#plot-species")
+            # a what-if: a longer SCR 1 (tab 3 form)
+            await pilot.press("3")
+            app.query_one("#wi-length").value = "1000"
+            await pilot.press("r")
+            await _settle(app, pilot)
+            assert app.session.edited
+            assert "(was " in _text(app, "#totals")
+            assert "What-if against the case" in _text(app, "#wi-compare")
+            # a bad edit: nothing applied, a message shown
+            n_edits = len(app.session.whatif.assignments)
+            app.query_one("#wi-length").value = "-5"
+            await pilot.press("r")
+            await pilot.pause()
+            assert "not applied" in _text(app, "#status")
+            assert len(app.session.whatif.assignments) == n_edits
+            # sizing
+            await pilot.press("s")
+            await _settle(app, pilot, timeout=120)
+            out = _text(app, "#size-out")
+            assert "feasible" in out and "binding:" in out
+            # save as (the name exists: backed up first)
+            target = case_copy.with_name("edited.toml")
+            target.write_text("# a file that was there before\n")
+            await pilot.press("a")
+            await pilot.pause()
+            app.screen.query_one("#save-name").value = str(target)
+            await pilot.click("#save-ok")
+            await pilot.pause()
+            assert "saved" in _text(app, "#status")
+            assert (case_copy.with_name("edited.toml.bak")).read_text().startswith("# a file")
+            saved = Session(target)
+            assert saved.case.train.bricks[0].length == pytest.approx(1.0)
+            # help screen lists the keys
+            await pilot.press("question_mark")
+            await pilot.pause()
+            assert "size the train" in str(app.screen.query_one("#help-text").render())
+            await pilot.press("escape")
+            # export
+            await pilot.press("e")
+            await pilot.pause()
+            assert (case_copy.with_name("genset_d2_report") / "summary.json").exists()
+    asyncio.run(walk())
+
+
+def test_starts_fast_and_stays_responsive(case_copy):
+    """The first screen is up well before the solve ends (the solve runs in a worker): the
+    app answers a key press while the modes are being solved. (Start-up time itself is printed
+    by benchmarks, not asserted here.)"""
+    async def go():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(140, 45)) as pilot:
+            await pilot.pause()
+            await pilot.press("question_mark")          # while the solve may still run
+            await pilot.pause()
+            assert app.screen.__class__.__name__ == "HelpScreen"
+            await pilot.press("escape")
+            await _settle(app, pilot)
+            assert app.session.result is not None
+    asyncio.run(go())
+
+
+def test_session_never_overwrites_the_opened_case(case_copy):
+    """Saving onto the case that was opened is refused; the file is unchanged."""
+    from aftertreat.errors import InputError
+    s = Session(case_copy)
+    before = case_copy.read_text()
+    with pytest.raises(InputError):
+        s.save_as(case_copy)
+    assert case_copy.read_text() == before
+
+
+def test_bad_case_gives_one_line(tmp_path, capsys):
+    """`aftertreat tui` on a bad case: exit 2 and one line, before any screen opens."""
+    from aftertreat.cli import main
+    f = tmp_path / "bad.toml"
+    f.write_text('title = "x"\n[engine]\napplication = "rocket"\n')
+    assert main(["tui", str(f)]) == 2
+    assert len(capsys.readouterr().err.strip().splitlines()) == 1
+
+
+def test_trace_case_time_cursor(tmp_path):
+    """A trace case: the run happens in a worker, then ] and [ move the time cursor one sample
+    and the head line follows it (time series plotted with the cursor marked)."""
+    from test_transient_case import _trace_case
+
+    async def go():
+        app = CycleApp(_trace_case(tmp_path))
+        async with app.run_test(size=(150, 45)) as pilot:
+            await _settle(app, pilot)
+            assert app.session.transient is not None
+            assert "t = 0 s" in _text(app, "#profile-head")
+            await pilot.press("right_square_bracket")
+            await pilot.press("right_square_bracket")
+            await pilot.pause()
+            assert "t = 2 s" in _text(app, "#profile-head")
+            await pilot.press("left_square_bracket")
+            await pilot.pause()
+            assert "t = 1 s" in _text(app, "#profile-head")
+            assert "time [min]" in _text(app, "#plot-species")
+            assert "Limits over the run" in _text(app, "#limits")
+    asyncio.run(go())

@@ -1,0 +1,629 @@
+"""The aftertreat terminal UI: step through a case's duty cycle, look along the train, try
+what-ifs, size, save and export. Start it with ``aftertreat tui CASE``.
+
+Layout: the modes of the cycle on the left with the cycle totals and the limits; the selected
+mode on the right in tabs (profiles along the train, bricks, what-if, sizing, sources); the NH3
+safety caution always on screen. Every computation runs in a worker thread, so the screen stays
+live while the train is solved.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from rich.text import Text
+from textual import on, work
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import (Button, DataTable, Footer, Input, Label, Select, Static, TabbedContent,
+                             TabPane)
+
+from aftertreat.errors import InputError
+from aftertreat.output import SAFETY_NOTE
+
+from .session import Session
+
+__all__ = ["CycleApp", "main"]
+
+CAUTION = ("NH3 is toxic (odour ~5 ppm, irritation ~30 ppm, dangerous from a few hundred ppm); "
+           "stored NH3 is pressurised or refrigerated. Model estimates: local codes, permits and "
+           "licensed practice govern any installation.  [?] help")
+
+#: Keys and what they do (the help screen lists these; the footer shows the main ones).
+KEYS = [
+    ("n", "next_mode", "next mode"),
+    ("p", "previous_mode", "previous mode"),
+    ("1", "tab('profiles')", "profiles along the train"),
+    ("2", "tab('bricks')", "bricks table"),
+    ("3", "tab('whatif')", "what-if form"),
+    ("4", "tab('sizing')", "sizing"),
+    ("5", "tab('sources')", "sources behind the numbers"),
+    ("r", "run_whatif", "run the what-if in the form"),
+    ("b", "reset", "back to the case as loaded"),
+    ("s", "size", "size the train (aftertreat size)"),
+    ("a", "save_as", "save the edited case under a new name"),
+    ("e", "export", "export the report (aftertreat run --report)"),
+    ("space", "play", "trace: play or pause the time cursor"),
+    ("right_square_bracket", "step(1)", "trace: one sample forward"),
+    ("left_square_bracket", "step(-1)", "trace: one sample back"),
+    ("question_mark", "help", "this help"),
+    ("q", "quit", "quit"),
+]
+_SHOWN = {"n", "p", "r", "s", "a", "e", "question_mark", "q"}
+
+
+class HelpScreen(ModalScreen):
+    """Every key, and the safety caution in full."""
+    BINDINGS = [Binding("escape,q,question_mark", "dismiss", "close")]
+
+    def compose(self) -> ComposeResult:
+        rows = "\n".join(f"  {k.replace('_', ' '):24s} {text}" for k, _, text in KEYS)
+        with Vertical(id="help"):
+            yield Static(Text("Keys\n\n" + rows + "\n\n" + SAFETY_NOTE), id="help-text")
+            yield Button("Close", id="help-close")
+
+    @on(Button.Pressed, "#help-close")
+    def _close(self) -> None:
+        self.dismiss()
+
+
+class SaveScreen(ModalScreen):
+    """Ask for a new file name for the edited case."""
+    BINDINGS = [Binding("escape", "dismiss", "cancel")]
+
+    def __init__(self, suggestion: str):
+        super().__init__()
+        self.suggestion = suggestion
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="save"):
+            yield Label("Save the edited case as (an existing file is backed up first):")
+            yield Input(value=self.suggestion, id="save-name")
+            with Horizontal():
+                yield Button("Save", id="save-ok", variant="primary")
+                yield Button("Cancel", id="save-cancel")
+
+    @on(Button.Pressed, "#save-ok")
+    @on(Input.Submitted, "#save-name")
+    def _ok(self) -> None:
+        self.dismiss(self.query_one("#save-name", Input).value.strip())
+
+    @on(Button.Pressed, "#save-cancel")
+    def _cancel(self) -> None:
+        self.dismiss(None)
+
+
+def _chosen(select: Select):
+    """A Select's value, or None while it shows its prompt."""
+    return None if select.is_blank() else select.value
+
+
+def _f(v, fmt=".3g") -> str:
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return "-"
+    return format(v, fmt)
+
+
+def _delta(now: float, base: float | None, fmt=".3g") -> str:
+    if base is None or base == now:
+        return _f(now, fmt)
+    return f"{_f(now, fmt)} (was {_f(base, fmt)})"
+
+
+class CycleApp(App):
+    """Step through a case; see :mod:`tui.app`."""
+    CSS_PATH = "app.tcss"
+    TITLE = "aftertreat"
+    BINDINGS = [Binding(k, a, t, show=k in _SHOWN) for k, a, t in KEYS]
+
+    def __init__(self, case_path: str | Path):
+        super().__init__()
+        self.case_path = Path(case_path)
+        self.session: Session | None = None
+        self.mode_index = 0
+        self.cursor = 0                       # trace time index
+        self.playing = False
+        self.busy = False
+
+    # -- layout ------------------------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield Static("", id="title")
+        yield Static(Text(CAUTION), id="caution")
+        with Horizontal(id="main"):
+            with Vertical(id="left"):
+                yield DataTable(id="modes", cursor_type="row", zebra_stripes=True)
+                yield Static("", id="totals")
+                yield Static("", id="limits")
+            with TabbedContent(id="tabs", initial="profiles"):
+                with TabPane("1 Profiles", id="profiles"):
+                    yield Static("", id="profile-head")
+                    yield Static("", id="plot-species")
+                    yield Static("", id="plot-temp")
+                with TabPane("2 Bricks", id="bricks"):
+                    yield DataTable(id="brick-table", cursor_type="row")
+                    yield Static("", id="mode-figures")
+                with TabPane("3 What-if", id="whatif"):
+                    with VerticalScroll():
+                        yield Label(Text("Brick to change"))
+                        yield Select([], id="wi-brick", prompt="(choose a brick)")
+                        yield Label(Text("Length [mm]   Diameter [mm]   Cell density [cpsi]   "
+                                         "Activity [-]"))
+                        with Horizontal(classes="row"):
+                            yield Input(placeholder="length mm", id="wi-length")
+                            yield Input(placeholder="diameter mm", id="wi-diameter")
+                            yield Input(placeholder="cpsi", id="wi-cpsi")
+                            yield Input(placeholder="activity 0..2", id="wi-activity")
+                        yield Label(Text("Catalyst"))
+                        yield Select([], id="wi-catalyst", prompt="(unchanged)")
+                        yield Label(Text("Dosing method, ANR (every mode), inlet temperature "
+                                         "shift [K]"))
+                        with Horizontal(classes="row"):
+                            yield Select([("none", "none"), ("NH3", "NH3"), ("urea", "urea")],
+                                         id="wi-dosing", prompt="(unchanged)")
+                            yield Input(placeholder="ANR", id="wi-anr")
+                            yield Input(placeholder="dT K", id="wi-dT")
+                        with Horizontal(classes="row"):
+                            yield Button(Text("Run what-if (r)"), id="wi-run", variant="primary")
+                            yield Button(Text("Back to the case (b)"), id="wi-reset")
+                        yield Static("", id="wi-edits")
+                        yield Static("", id="wi-compare")
+                with TabPane("4 Sizing", id="sizing"):
+                    yield Button(Text("Size the train (s)"), id="size-run")
+                    yield Static("Sizing finds the smallest SCR and slip-catalyst lengths that "
+                                 "meet every limit with the case's design margin.", id="size-out")
+                with TabPane("5 Sources", id="sources"):
+                    with VerticalScroll():
+                        yield Static("", id="sources-text")
+        yield Static("", id="status")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self._status("reading the case...")
+        try:
+            self.session = Session(self.case_path)
+        except InputError as exc:
+            self._status(f"{exc}", error=True)
+            self.query_one("#title", Static).update(Text(f"aftertreat: cannot open "
+                                                         f"{self.case_path}"))
+            return
+        case = self.session.case
+        self.query_one("#title", Static).update(Text(f"{case.title}   ({self.case_path})",
+                                                     style="bold"))
+        bricks = [(b.name, b.name) for b in case.train.bricks]
+        sel = self.query_one("#wi-brick", Select)
+        sel.set_options(bricks)
+        sel.value = bricks[0][1]
+        from aftertreat.catalyst import available_catalysts
+        self.query_one("#wi-catalyst", Select).set_options([(k, k) for k in
+                                                            available_catalysts()])
+        t = self.query_one("#modes", DataTable)
+        if self.session.is_trace:
+            t.add_columns("t s", "kW", "T in C", "NOx out", "NH3 out", "N2O out")
+        else:
+            t.add_columns("mode", "W", "kW", "T in C", "ANR", "NOx in", "NOx out", "NH3 out",
+                          "N2O out", "dp kPa", "ok")
+        self.compute()
+
+    # -- workers -----------------------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="solve")
+    def compute(self) -> None:
+        """Solve the current case in a worker thread (steady modes, or the trace)."""
+        s = self.session
+        self.busy = True
+        try:
+            if s.is_trace:
+                self.call_from_thread(self._status, "running the trace (this takes a while)...")
+                s.run_transient(progress=lambda i, n: self.call_from_thread(
+                    self._status, f"trace step {i}/{n - 1}") if i % 100 == 0 else None)
+            else:
+                self.call_from_thread(self._status, "solving...")
+                s.run(progress=lambda i, n, name: self.call_from_thread(
+                    self._status, f"solving mode {i + 1}/{n}: {name}"))
+            self.call_from_thread(self._show_all)
+            self.call_from_thread(self._status, "ready" + (" (what-if)" if s.edited else ""))
+        except InputError as exc:
+            self.call_from_thread(self._status, f"{exc}", True)
+        except Exception as exc:        # noqa: BLE001 - a failure of ours: shown, never a crash
+            self.call_from_thread(self._status, f"failure: {type(exc).__name__}: {exc}", True)
+        finally:
+            self.busy = False
+
+    @work(thread=True, exclusive=True, group="size")
+    def _size_worker(self) -> None:
+        s = self.session
+        self.busy = True
+        try:
+            res = s.size(progress=lambda text: self.call_from_thread(self._status,
+                                                                     f"sizing: {text}"))
+            self.call_from_thread(self._show_sizing, res)
+            self.call_from_thread(self._status, "sizing done")
+        except InputError as exc:
+            self.call_from_thread(self._status, f"{exc}", True)
+        except Exception as exc:        # noqa: BLE001
+            self.call_from_thread(self._status, f"failure: {type(exc).__name__}: {exc}", True)
+        finally:
+            self.busy = False
+
+    # -- showing -----------------------------------------------------------------------------
+    def _status(self, text: str, error: bool = False) -> None:
+        """The status line (plain text: messages may contain brackets such as '[mm]')."""
+        self.query_one("#status", Static).update(Text(text, style="bold red" if error else ""))
+
+    def _show_all(self) -> None:
+        s = self.session
+        if s.is_trace:
+            self._show_trace()
+            return
+        res, base = s.result, s.base_result
+        t = self.query_one("#modes", DataTable)
+        t.clear()
+        for m, row in zip(res.modes, res.mode_table().itertuples()):
+            e = m.emissions()
+            t.add_row(m.name, f"{m.weight:.2f}", f"{m.power_kW:.0f}", f"{row.T_in_C:.0f}",
+                      _f(row.ANR, ".2f"), f"{m.emissions(m.inlet)['ppmvd']['NOx']:.0f}",
+                      f"{e['ppmvd']['NOx']:.1f}", f"{e['ppmvd']['NH3']:.1f}",
+                      f"{e['ppmvd']['N2O']:.1f}", f"{row.dp_kPa:.2f}",
+                      "yes" if row.converged else "NO")
+        self.mode_index = min(self.mode_index, len(res.modes) - 1)
+        t.move_cursor(row=self.mode_index)
+        c = res.cycle
+        bc = base.cycle if (base is not None and s.edited) else None
+        lines = [f"Cycle {s.case.cycle.name} (ppm columns: ppmvd at the actual O2)",
+                 f"NOx  {_delta(c['NOx_g_kWh'], bc and bc['NOx_g_kWh'])} g/kWh",
+                 f"N2O  {_delta(c['N2O_g_kWh'], bc and bc['N2O_g_kWh'])} g/kWh",
+                 f"NH3 slip max {_delta(c['NH3_slip_ppmvd_max'], bc and bc['NH3_slip_ppmvd_max'])}"
+                 " ppmvd",
+                 f"train volume {_delta(s.case.train.volume * 1e3, s.base_case.train.volume * 1e3 if s.edited else None, '.0f')} L"]
+        self.query_one("#totals", Static).update(Text("\n".join(lines)))
+        lim = Text("Limits\n")
+        for r in res.limits:
+            ok = r["pass"]
+            name = r["name"]
+            lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
+            lim.append(f"{name}: {_f(r.get('value'))} / {_f(r.get('limit'))} {r['unit']}\n")
+        lim.append("PASSES every limit" if res.passed else "DOES NOT PASS",
+                   style="bold green" if res.passed else "bold red")
+        self.query_one("#limits", Static).update(lim)
+        self._show_mode()
+        self._show_sources()
+        self._show_edits()
+
+    def _show_mode(self) -> None:
+        s = self.session
+        if s.result is None or s.is_trace:
+            return
+        m = s.result.modes[self.mode_index]
+        sol = m.solution
+        head = (f"Mode {m.name} ({self.mode_index + 1}/{len(s.result.modes)}): "
+                f"{m.power_kW:.0f} kW, exhaust {m.inlet.mass_flow * 3600:.0f} kg/h, "
+                f"T in {m.inlet.T - 273.15:.0f} C, ANR {_f(m.anr, '.2f')}, "
+                f"NOx conversion {100 * sol.nox_conversion():.1f} %, dp {sol.dp_Pa / 1e3:.2f} kPa, "
+                f"GHSV {sol.ghsv_per_h():.0f} 1/h")
+        self.query_one("#profile-head", Static).update(Text(head))
+        self._draw_profiles(sol)
+        bt = self.query_one("#brick-table", DataTable)
+        bt.clear(columns=True)
+        table = sol.brick_table()
+        cols = [c for c in ("name", "role", "catalysts", "volume_L", "GHSV_per_h", "T_out_C",
+                            "dp_kPa", "NO_out_ppm", "NO2_out_ppm", "NH3_out_ppm", "N2O_out_ppm",
+                            "converged") if c in table.columns]
+        bt.add_columns(*cols)
+        for row in table[cols].itertuples(index=False):
+            bt.add_row(*[v if isinstance(v, str) else _f(v) for v in row])
+        base = s.base_result.modes[self.mode_index] if (s.base_result and s.edited) else None
+        e, eb = m.emissions(), (base.emissions() if base else None)
+        fig = [f"outlet NOx {_delta(e['ppmvd']['NOx'], eb and eb['ppmvd']['NOx'])} ppmvd",
+               f"outlet NH3 {_delta(e['ppmvd']['NH3'], eb and eb['ppmvd']['NH3'])} ppmvd",
+               f"outlet N2O {_delta(e['ppmvd']['N2O'], eb and eb['ppmvd']['N2O'])} ppmvd",
+               f"NOx conversion {_delta(100 * sol.nox_conversion(), base and 100 * base.solution.nox_conversion())} %",
+               f"pressure drop {_delta(sol.dp_Pa / 1e3, base and base.solution.dp_Pa / 1e3)} kPa",
+               f"GHSV {_delta(sol.ghsv_per_h(), base and base.solution.ghsv_per_h(), '.0f')} 1/h"]
+        self.query_one("#mode-figures", Static).update(Text("\n".join(fig)))
+
+    def _plot_size(self) -> tuple[int, int]:
+        """Width and height of each of the two charts: the tab area's share of the screen
+        (3/5 of the width; the height less the title, caution, tab bar, mode line, status and
+        footer), split between the two charts."""
+        W, H = self.size
+        w = max(W * 3 // 5 - 4, 30)
+        h = max((H - 12) // 2, 7)
+        return w, h
+
+    def _draw_profiles(self, sol) -> None:
+        from .plot import line_chart
+        z0, xs, marks = 0.0, [], []
+        for b in sol.bricks:
+            xs.append(z0 + b.z)
+            z0 += b.brick.length
+            marks.append(z0 * 1e3)
+        x = np.concatenate(xs) * 1e3
+        ppm = {sp: np.concatenate([b.ppm_profile(sp) for b in sol.bricks])
+               for sp in ("NO", "NO2", "NH3", "N2O")}
+        w, h = self._plot_size()
+        styles = {"NO": "cyan", "NO2": "yellow", "NH3": "red", "N2O": "magenta"}
+        chart = line_chart([(sp, x, np.maximum(v, 1e-3), styles[sp]) for sp, v in ppm.items()],
+                           w, h, x_label="distance along the train [mm]", y_label="ppm wet",
+                           log_y=True, markers=marks[:-1])
+        self.query_one("#plot-species", Static).update(chart)
+        Tg = np.concatenate([b.T_gas for b in sol.bricks]) - 273.15
+        Ts = np.concatenate([b.T_solid for b in sol.bricks]) - 273.15
+        t_chart = line_chart([("gas T", x, Tg, "white"), ("solid T", x, Ts, "green")], w, h,
+                             x_label="distance along the train [mm]", y_label="C",
+                             markers=marks[:-1])
+        text = Text()
+        text.append_text(t_chart)
+        text.append("\nstored NH3 (mean coverage): " + " ".join(
+            f"{b.brick.name} {np.mean(b.coverage) if b.coverage.size else 0.0:.2f}"
+            for b in sol.bricks))
+        self.query_one("#plot-temp", Static).update(text)
+
+    def _show_trace(self) -> None:
+        s = self.session
+        run = s.transient
+        df = run.table()
+        t = self.query_one("#modes", DataTable)
+        t.clear()
+        step = max(len(df) // 60, 1)
+        for i in range(0, len(df), step):
+            r = df.iloc[i]
+            t.add_row(f"{r.t_s:.0f}", f"{r.power_kW:.0f}", f"{r.T_in_C:.0f}",
+                      f"{r.NOx_out_ppmvd:.1f}", f"{r.NH3_out_ppmvd:.1f}",
+                      f"{r.N2O_out_ppmvd:.1f}")
+        sm = run.summary()
+        lines = [f"Trace {sm['source']}: {sm['duration_s']:.0f} s, work {sm['work_kWh']:.1f} kWh",
+                 f"NOx {_f(sm['NOx_g_kWh'])} g/kWh, N2O {_f(sm['N2O_g_kWh'])} g/kWh",
+                 f"NH3 slip peak {sm['NH3_slip_ppmvd_peak']:.1f}, mean "
+                 f"{sm['NH3_slip_ppmvd_mean']:.2f} ppmvd",
+                 f"solved {sm['real_time_factor']:.0f} x faster than real time"]
+        self.query_one("#totals", Static).update(Text("\n".join(lines)))
+        lim = Text("Limits over the run\n")
+        for r in sm["limits"]:
+            ok = r["pass"]
+            lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
+            extra = (f", {r['time_above_s']:.0f} s above" if "time_above_s" in r else "")
+            lim.append(f"{r['name']}: {_f(r.get('value', r.get('peak')))} / "
+                       f"{_f(r.get('limit'))} {r['unit']}{extra}\n")
+        self.query_one("#limits", Static).update(lim)
+        self._show_cursor()
+        self._show_sources()
+
+    def _show_cursor(self) -> None:
+        from .plot import line_chart
+        run = self.session.transient
+        if run is None:
+            return
+        df = run.table()
+        i = min(max(self.cursor, 0), len(df) - 1)
+        self.cursor = i
+        r = df.iloc[i]
+        self.query_one("#profile-head", Static).update(Text(
+            f"t = {r.t_s:.0f} s: {r.power_kW:.0f} kW, T in {r.T_in_C:.0f} C, ANR {r.ANR_in:.2f}; "
+            f"out NOx {r.NOx_out_ppmvd:.1f}, NH3 {r.NH3_out_ppmvd:.1f}, N2O "
+            f"{r.N2O_out_ppmvd:.1f} ppmvd  ({'playing' if self.playing else 'paused'}; "
+            "space plays, [ and ] step)"))
+        w, h = self._plot_size()
+        tm = df.t_s.to_numpy() / 60.0
+        chart = line_chart([("NOx", tm, df.NOx_out_ppmvd.to_numpy(), "cyan"),
+                            ("NH3", tm, df.NH3_out_ppmvd.to_numpy(), "red"),
+                            ("N2O", tm, df.N2O_out_ppmvd.to_numpy(), "magenta")], w, h,
+                           x_label="time [min]", y_label="ppmvd", markers=[tm[i]])
+        self.query_one("#plot-species", Static).update(chart)
+        series = [("gas in", tm, df.T_in_C.to_numpy(), "white")]
+        for name, st in zip(run.result.brick_names, ("green", "yellow", "blue", "cyan")):
+            series.append((f"{name} solid", tm, df[f"{name}_T_solid_mean_C"].to_numpy(), st))
+        self.query_one("#plot-temp", Static).update(
+            line_chart(series, w, h, x_label="time [min]", y_label="C", markers=[tm[i]]))
+
+    def _show_sources(self) -> None:
+        s = self.session
+        lines = ["Sources behind these numbers (catalyst papers, correlations, cycle, limits):",
+                 ""]
+        res = s.result
+        if res is not None:
+            seen = []
+            for m in res.modes:
+                for src in m.solution.sources():
+                    if src not in seen:
+                        seen.append(src)
+            lines += [f"- {x}" for x in seen]
+        for ls in s.case.limit_sets:
+            lines.append(f"- limit set {ls.name}: {ls.source} (confidence {ls.confidence})")
+        lines += ["", "Parameter provenance of each catalyst: aftertreat catalysts KEY", "",
+                  SAFETY_NOTE]
+        self.query_one("#sources-text", Static).update(Text("\n".join(lines)))
+
+    def _show_edits(self) -> None:
+        s = self.session
+        text = ("Edits: " + "; ".join(s.whatif.assignments)) if s.edited else \
+            "No edits: this is the case as loaded."
+        self.query_one("#wi-edits", Static).update(Text(text))
+        if s.edited and s.base_result is not None and s.result is not None:
+            c, b = s.result.cycle, s.base_result.cycle
+            cmp = [f"{k}: {_f(b[k])} -> {_f(c[k])}" for k in
+                   ("NOx_g_kWh", "N2O_g_kWh", "NH3_g_kWh", "NH3_slip_ppmvd_max")]
+            cmp.append(f"passes: {s.base_result.passed} -> {s.result.passed}")
+            self.query_one("#wi-compare", Static).update(Text("What-if against the case:\n"
+                                                              + "\n".join(cmp)))
+        else:
+            self.query_one("#wi-compare", Static).update("")
+
+    def _show_sizing(self, res) -> None:
+        lines = [("feasible" if res.feasible else "NOT FEASIBLE")
+                 + f"; total volume {res.train.volume * 1e3:.0f} L; "
+                 f"{res.evaluations} designs in {res.seconds:.1f} s"]
+        for b in res.brick_rows():
+            lines.append(f"  {b['name']:10s} {b['role']:4s} length {b['length_mm']:.0f} mm, "
+                         f"diameter {b['diameter_mm']:.0f} mm, {b['volume_L']:.0f} L")
+        lines.append("binding: " + ("; ".join(res.binding) or "none within 1.5 %"))
+        for p in res.problems:
+            lines.append(f"problem: {p}")
+        if res.suggestions:
+            lines.append("what would help: " + "; ".join(res.suggestions))
+        self.query_one("#size-out", Static).update(Text("\n".join(lines)))
+
+    # -- events and actions ------------------------------------------------------------------
+    @on(DataTable.RowHighlighted, "#modes")
+    def _row(self, event: DataTable.RowHighlighted) -> None:
+        if self.session is None or self.session.result is None or self.session.is_trace:
+            return
+        if event.cursor_row != self.mode_index:
+            self.mode_index = event.cursor_row
+            self._show_mode()
+
+    def action_next_mode(self) -> None:
+        self._move(1)
+
+    def action_previous_mode(self) -> None:
+        self._move(-1)
+
+    def _move(self, d: int) -> None:
+        s = self.session
+        if s is None:
+            return
+        if s.is_trace:
+            self.action_step(d * 60)
+            return
+        if s.result is None:
+            return
+        n = len(s.result.modes)
+        self.mode_index = (self.mode_index + d) % n
+        self.query_one("#modes", DataTable).move_cursor(row=self.mode_index)
+        self._show_mode()
+
+    def action_tab(self, name: str) -> None:
+        self.query_one("#tabs", TabbedContent).active = name
+
+    def action_help(self) -> None:
+        self.push_screen(HelpScreen())
+
+    def action_step(self, d: int) -> None:
+        if self.session is None or self.session.transient is None:
+            return
+        self.cursor += int(d)
+        self._show_cursor()
+
+    def action_play(self) -> None:
+        if self.session is None or self.session.transient is None:
+            self._status("play/pause steps a trace's time cursor; this case has modes (n/p)")
+            return
+        self.playing = not self.playing
+        if self.playing:
+            self._timer = self.set_interval(0.1, lambda: self.action_step(5))
+        elif getattr(self, "_timer", None) is not None:
+            self._timer.stop()
+        self._show_cursor()
+
+    def _number(self, wid: str, lo: float, hi: float, what: str):
+        text = self.query_one(wid, Input).value.strip()
+        if not text:
+            return None
+        try:
+            v = float(text)
+        except ValueError:
+            raise InputError(f"expected a number for {what}", key=what, value=text) from None
+        if not lo <= v <= hi:
+            raise InputError(f"expected {what} within [{lo:g}, {hi:g}]", key=what, value=v)
+        return v
+
+    def _form_assignments(self) -> list[str]:
+        s = self.session
+        brick = _chosen(self.query_one("#wi-brick", Select))
+        out = []
+        if brick is not None:
+            cat = _chosen(self.query_one("#wi-catalyst", Select))
+            out += s.brick_assignments(
+                str(brick), length_mm=self._number("#wi-length", 1.0, 1e5, "length [mm]"),
+                diameter_mm=self._number("#wi-diameter", 1.0, 1e5, "diameter [mm]"),
+                cpsi=self._number("#wi-cpsi", 1.0, 2000.0, "cell density [cpsi]"),
+                catalyst=None if cat is None else str(cat),
+                activity=self._number("#wi-activity", 0.01, 2.0, "activity"))
+        method = _chosen(self.query_one("#wi-dosing", Select))
+        if method is not None:
+            out.append(f'dosing.method="{method}"')
+        anr = self._number("#wi-anr", 0.0, 3.0, "ANR")
+        if anr is not None:
+            out.append(f"dosing.ANR={anr:g}")
+        dT = self._number("#wi-dT", -300.0, 300.0, "temperature shift [K]")
+        if dT:
+            out += s.inlet_temperature_assignment(dT)
+        return out
+
+    @on(Button.Pressed, "#wi-run")
+    def action_run_whatif(self) -> None:
+        s = self.session
+        if s is None:
+            return
+        if s.is_trace:
+            self._status("what-ifs work on cases with modes; a trace runs as it is")
+            return
+        try:
+            a = self._form_assignments()
+            if not a:
+                self._status("nothing to change: fill in the what-if form (tab 3) first")
+                return
+            s.apply(a)
+        except InputError as exc:
+            self._status(f"not applied: {exc}", error=True)
+            return
+        for wid in ("#wi-length", "#wi-diameter", "#wi-cpsi", "#wi-activity", "#wi-anr",
+                    "#wi-dT"):
+            self.query_one(wid, Input).value = ""
+        self._show_edits()
+        self.compute()
+
+    @on(Button.Pressed, "#wi-reset")
+    def action_reset(self) -> None:
+        if self.session is None:
+            return
+        self.session.reset()
+        self._status("back to the case as loaded")
+        if self.session.result is not None and not self.session.is_trace:
+            self._show_all()
+
+    @on(Button.Pressed, "#size-run")
+    def action_size(self) -> None:
+        if self.session is None or self.session.is_trace:
+            self._status("sizing needs a case with modes")
+            return
+        self.action_tab("sizing")
+        self.query_one("#size-out", Static).update("sizing...")
+        self._size_worker()
+
+    def action_save_as(self) -> None:
+        if self.session is None:
+            return
+        stem = self.case_path.stem
+        suggestion = str(self.case_path.with_name(f"{stem}_whatif.toml"))
+
+        def done(name):
+            if not name:
+                return
+            try:
+                target, backup = self.session.save_as(name)
+            except (InputError, OSError) as exc:
+                self._status(f"not saved: {exc}", error=True)
+                return
+            self._status(f"saved {target}" + (f" (the file there was kept as {backup.name})"
+                                              if backup else ""))
+        self.push_screen(SaveScreen(suggestion), done)
+
+    def action_export(self) -> None:
+        s = self.session
+        if s is None or s.result is None:
+            self._status("nothing solved yet")
+            return
+        folder = self.case_path.with_name(f"{self.case_path.stem}_report")
+        try:
+            s.export_report(folder)
+        except (InputError, OSError) as exc:
+            self._status(f"report not written: {exc}", error=True)
+            return
+        self._status(f"report written to {folder}/")
+
+
+def main(case_path: str) -> int:
+    """Run the app on ``case_path``; returns the exit code."""
+    CycleApp(case_path).run()
+    return 0

@@ -1,0 +1,174 @@
+"""What the terminal UI works on, without any UI: the case as loaded, the edits made to it,
+the baseline and current results, saving and exporting.
+
+Edits are ``--set`` assignments (``brick.SCR 1.length=800 mm``), applied to a copy of the case
+file's data and validated exactly as the command line validates them, so the UI accepts what
+``aftertreat run CASE --set ...`` accepts and rejects the rest with the same message.
+"""
+from __future__ import annotations
+
+import copy
+import shutil
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from aftertreat.case import apply_set, read_toml
+from aftertreat.cyclecase import parse_run_case
+from aftertreat.errors import InputError
+
+__all__ = ["Session", "WhatIf", "backup_name"]
+
+
+@dataclass
+class WhatIf:
+    """One what-if: the assignments made, in order."""
+    assignments: list[str] = field(default_factory=list)
+
+
+def backup_name(path: Path) -> Path:
+    """A free backup name beside ``path``: ``name.toml.bak``, then ``.bak2``, ``.bak3``..."""
+    cand = path.with_name(path.name + ".bak")
+    k = 2
+    while cand.exists():
+        cand = path.with_name(f"{path.name}.bak{k}")
+        k += 1
+    return cand
+
+
+class Session:
+    """A case file, its baseline result and a what-if being edited."""
+
+    def __init__(self, path: str | Path):
+        self.path = Path(path)
+        self.base_data = read_toml(self.path)
+        self.base_case = parse_run_case(copy.deepcopy(self.base_data), str(self.path))
+        self.whatif = WhatIf()
+        self.data = copy.deepcopy(self.base_data)
+        self.case = self.base_case
+        self.base_result = None          # CycleResult of the case as loaded
+        self.result = None               # CycleResult of the current what-if (or the baseline)
+        self.transient = None            # TransientRun of a trace case
+        self.sizing = None
+
+    # -- properties --------------------------------------------------------------------------
+    @property
+    def is_trace(self) -> bool:
+        return self.case.cycle is None
+
+    @property
+    def edited(self) -> bool:
+        return bool(self.whatif.assignments)
+
+    # -- edits -------------------------------------------------------------------------------
+    def preview(self, assignments: list[str]):
+        """The case with ``assignments`` added to the current edits (validated), without
+        keeping it. Raises InputError naming the key and value."""
+        data = copy.deepcopy(self.data)
+        for a in assignments:
+            data = apply_set(data, a, str(self.path))
+        return data, parse_run_case(copy.deepcopy(data), str(self.path))
+
+    def apply(self, assignments: list[str]):
+        """Add ``assignments`` to the what-if (validated first; nothing changes on error)."""
+        data, case = self.preview(assignments)
+        self.data, self.case = data, case
+        self.whatif.assignments += list(assignments)
+        return case
+
+    def reset(self):
+        """Back to the case as loaded."""
+        self.data = copy.deepcopy(self.base_data)
+        self.case = self.base_case
+        self.whatif = WhatIf()
+        self.result = self.base_result
+
+    def brick_assignments(self, name: str, *, length_mm=None, diameter_mm=None, cpsi=None,
+                          catalyst=None, activity=None) -> list[str]:
+        """Assignments for one brick, written against the keys its table already uses
+        (``length`` or ``length_mm``...), so the edited file stays as its author wrote it."""
+        bricks = self.data.get("brick", [])
+        table = next((b for b in bricks if b.get("name") == name), None)
+        if table is None:
+            raise InputError("no such brick", key="brick", value=name, file=str(self.path))
+        out = []
+        for key, v in (("length", length_mm), ("diameter", diameter_mm)):
+            if v is None:
+                continue
+            if f"{key}_mm" in table:
+                out.append(f"brick.{name}.{key}_mm={float(v):g}")
+            else:
+                out.append(f'brick.{name}.{key}="{float(v):g} mm"')
+        if cpsi is not None:
+            out.append(f"brick.{name}.cpsi={float(cpsi):g}")
+        if catalyst is not None:
+            out.append(f'brick.{name}.catalyst="{catalyst}"')
+        if activity is not None:
+            out.append(f"brick.{name}.activity={float(activity):g}")
+        return out
+
+    def inlet_temperature_assignment(self, delta_K: float) -> list[str]:
+        """Assignments that shift every mode's engine-out temperature by ``delta_K``."""
+        eo = self.data.get("engine_out", {})
+        T = eo.get("T_C")
+        if T is None:
+            raise InputError("this case has no engine-out temperature to shift",
+                             key="engine_out.T_C", file=str(self.path))
+        if isinstance(T, list):
+            new = [float(t) + delta_K for t in T]
+            return ["engine_out.T_C=[" + ", ".join(f"{t:g}" for t in new) + "]"]
+        return [f"engine_out.T_C={float(T) + delta_K:g}"]
+
+    # -- computing ---------------------------------------------------------------------------
+    def run(self, progress=None):
+        """Solve the current case (steady modes); the first run is the baseline."""
+        from aftertreat.evaluate import run_case
+        res = run_case(self.case, progress=progress)
+        if self.base_result is None and not self.edited:
+            self.base_result = res
+        self.result = res
+        return res
+
+    def run_transient(self, progress=None):
+        from aftertreat.transient_run import run_transient
+        self.transient = run_transient(self.case, progress=progress)
+        return self.transient
+
+    def size(self, progress=None):
+        from aftertreat.sizing import size_case
+        self.sizing = size_case(self.case, progress=progress)
+        return self.sizing
+
+    # -- files -------------------------------------------------------------------------------
+    def save_as(self, target: str | Path) -> tuple[Path, Path | None]:
+        """Write the edited case to ``target`` (TOML, atomically). An existing file is first
+        copied to a free backup name beside it, which is returned too; the case file that was
+        opened is never the target."""
+        from aftertreat.output import write_atomic
+        from aftertreat.report import to_toml
+        target = Path(target)
+        if target.suffix != ".toml":
+            raise InputError("expected a file name ending in .toml", key="save as",
+                             value=str(target))
+        if target.resolve() == self.path.resolve():
+            raise InputError("give a new name: the case that was opened is kept as it is",
+                             key="save as", value=str(target))
+        backup = None
+        if target.exists():
+            backup = backup_name(target)
+            shutil.copy2(target, backup)
+        head = (f"# {self.data.get('title', self.path.stem)}\n"
+                f"# saved by the aftertreat terminal UI on {time.strftime('%Y-%m-%d %H:%M')} "
+                f"from {self.path.name}\n")
+        if self.whatif.assignments:
+            head += "# edits: " + "; ".join(self.whatif.assignments) + "\n"
+        write_atomic(target, head + to_toml(self.data))
+        return target, backup
+
+    def export_report(self, folder: str | Path) -> Path:
+        """Write the report of the current result (as ``aftertreat run --report``)."""
+        from aftertreat.report import write_report
+        if self.result is None:
+            raise InputError("nothing solved yet", key="report")
+        write_report(self.result, folder)
+        return Path(folder)
