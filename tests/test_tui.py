@@ -158,3 +158,14 @@ def test_trace_case_time_cursor(tmp_path):
             assert "time [min]" in _text(app, "#plot-species")
             assert "Limits over the run" in _text(app, "#limits")
     asyncio.run(go())
+
+
+def test_unknown_catalyst_edit_is_refused(case_copy):
+    """An edit naming a catalyst that does not exist is refused with the key named, and the
+    what-if is unchanged (the UI shows the same message on its status line)."""
+    from aftertreat.errors import InputError
+    s = Session(case_copy)
+    with pytest.raises(InputError) as e:
+        s.apply(s.brick_assignments("SCR 1", catalyst="no_such_catalyst"))
+    assert "catalyst" in str(e.value)
+    assert not s.edited

@@ -141,6 +141,7 @@ class CycleApp(App):
                     yield Static("", id="profile-head")
                     yield Static("", id="plot-species")
                     yield Static("", id="plot-temp")
+                    yield Static("", id="plot-store")
                 with TabPane("2 Bricks", id="bricks"):
                     yield DataTable(id="brick-table", cursor_type="row")
                     yield Static("", id="mode-figures")
@@ -323,12 +324,12 @@ class CycleApp(App):
         self.query_one("#mode-figures", Static).update(Text("\n".join(fig)))
 
     def _plot_size(self) -> tuple[int, int]:
-        """Width and height of each of the two charts: the tab area's share of the screen
+        """Width and height of each of the three charts: the tab area's share of the screen
         (3/5 of the width; the height less the title, caution, tab bar, mode line, status and
-        footer), split between the two charts."""
+        footer), split between the charts."""
         W, H = self.size
         w = max(W * 3 // 5 - 4, 30)
-        h = max((H - 12) // 2, 7)
+        h = max((H - 12) // 3, 6)
         return w, h
 
     def _draw_profiles(self, sol) -> None:
@@ -352,12 +353,15 @@ class CycleApp(App):
         t_chart = line_chart([("gas T", x, Tg, "white"), ("solid T", x, Ts, "green")], w, h,
                              x_label="distance along the train [mm]", y_label="C",
                              markers=marks[:-1])
-        text = Text()
-        text.append_text(t_chart)
-        text.append("\nstored NH3 (mean coverage): " + " ".join(
-            f"{b.brick.name} {np.mean(b.coverage) if b.coverage.size else 0.0:.2f}"
-            for b in sol.bricks))
-        self.query_one("#plot-temp", Static).update(text)
+        self.query_one("#plot-temp", Static).update(t_chart)
+        # stored NH3: mean coverage over the washcoat nodes and sites of each cell
+        cov = np.concatenate([b.coverage.reshape(len(b.z), -1).mean(axis=1)
+                              if b.coverage.size else np.full(len(b.z), np.nan)
+                              for b in sol.bricks])
+        self.query_one("#plot-store", Static).update(line_chart(
+            [("stored NH3 (coverage)", x, cov, "red")], w, h,
+            x_label="distance along the train [mm]", y_label="theta [-]", y_min=0.0,
+            markers=marks[:-1]))
 
     def _show_trace(self) -> None:
         s = self.session
@@ -415,6 +419,11 @@ class CycleApp(App):
             series.append((f"{name} solid", tm, df[f"{name}_T_solid_mean_C"].to_numpy(), st))
         self.query_one("#plot-temp", Static).update(
             line_chart(series, w, h, x_label="time [min]", y_label="C", markers=[tm[i]]))
+        store = [(name, tm, df[f"{name}_stored_NH3_g"].to_numpy(), st) for name, st in
+                 zip(run.result.brick_names, ("green", "yellow", "blue", "cyan"))]
+        self.query_one("#plot-store", Static).update(
+            line_chart(store, w, h, x_label="time [min]", y_label="stored NH3 [g]",
+                       markers=[tm[i]]))
 
     def _show_sources(self) -> None:
         s = self.session
