@@ -173,7 +173,7 @@ def timeline(case) -> Timeline:
     from .evaluate import engine_out_stream
     modes = case.cycle.modes
     streams, powers, co2 = [], [], []
-    for i, mode in enumerate(modes):
+    for i in range(len(modes)):
         p, eo, c = engine_out_stream(case, i)
         streams.append(eo)
         powers.append(p)
