@@ -251,6 +251,9 @@ def parse_case(data: dict, file: str) -> Case:
     if "cycle" in data and "exhaust" not in data:
         raise InputError("this is a duty-cycle case (it has [cycle]): use 'aftertreat run' or "
                          "'aftertreat size'", key="cycle", file=file)
+    if "transient" in data and "exhaust" not in data:
+        raise InputError("this is a time-trace case (it has [transient]): use 'aftertreat run'",
+                         key="transient", file=file)
     _unknown(data, _TOP, file, "")
     if "exhaust" not in data or not isinstance(data["exhaust"], dict):
         raise InputError("missing the [exhaust] table", key="exhaust", file=file)

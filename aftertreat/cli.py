@@ -402,7 +402,7 @@ def _sources(args) -> int:
     from .case import load_case, read_toml
     from .citations import MODEL_SOURCES
     data = read_toml(args.case)
-    if "cycle" in data:
+    if "cycle" in data or "transient" in data:
         from .cyclecase import load_run_case
         case = load_run_case(args.case)
     else:
@@ -419,11 +419,13 @@ def _sources(args) -> int:
             if MODEL_SOURCES[key] not in seen:
                 seen.add(MODEL_SOURCES[key])
                 lines.append(f"model: {MODEL_SOURCES[key]}")
-    if hasattr(case, "cycle"):
+    if getattr(case, "cycle", None) is not None:
         lines.append(f"cycle {case.cycle.name}: {case.cycle.source} "
                      f"(confidence: {case.cycle.confidence})")
-        for ls in case.limit_sets:
-            lines.append(f"limits {ls.name}: {ls.source} (confidence: {ls.confidence})")
+    if getattr(case, "transient", None) is not None and case.transient["trace"]:
+        lines.append(f"time trace {case.transient['trace']} (the case's own data)")
+    for ls in getattr(case, "limit_sets", []):
+        lines.append(f"limits {ls.name}: {ls.source} (confidence: {ls.confidence})")
     print(f"Sources behind {case.title}:")
     for line in lines:
         print(f"  - {line}")

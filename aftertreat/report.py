@@ -7,7 +7,8 @@ from pathlib import Path
 
 from .output import SAFETY_NOTE, to_json, write_atomic
 
-__all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml"]
+__all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml",
+           "sources_text"]
 
 
 def _toml_value(v) -> str:
@@ -85,14 +86,15 @@ def write_report(result, folder: str | Path) -> list[Path]:
         put("provenance.csv", _csv(prov))
     put("outlet_vs_limits.png", _plot_outlet(result))
     put("profiles.png", _plot_profiles(result))
-    put("sources.txt", _sources(result))
+    put("sources.txt", sources_text(result))
     put("case_as_run.toml", f"# {result.case.title}\n# as run (after any --set overrides)\n"
         + to_toml(result.case.data))
     put("SAFETY.txt", SAFETY_NOTE + "\n")
     return written
 
 
-def _sources(result) -> str:
+def sources_text(result) -> str:
+    """The sources behind a duty-cycle result: catalysts, correlations, cycle, limit sets."""
     lines = [f"Sources behind: {result.case.title}", ""]
     seen = set()
     for m in result.modes:

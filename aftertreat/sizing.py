@@ -433,6 +433,10 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     pressure drop scales as V/D^4 (Hagen-Poiseuille), so D <- D (dp/budget)^(1/4), repeated
     until within 2 % (at most four sizings).
     """
+    if case.cycle is None:
+        raise InputError("sizing works on the modes of a [cycle]; this case is a time trace "
+                         "(run it with 'aftertreat run', or add a cycle)", key="transient.trace",
+                         file=case.file)
     t0 = time.perf_counter()
     sz = case.sizing
     m = sz["design_margin"]

@@ -35,6 +35,7 @@ import numpy as np
 
 from . import dosing as dosing_mod
 from .control import AnrMap, StorageController, parse_map
+from .emissions import dry_ppm
 from .errors import InputError, did_you_mean
 from .species import INDEX
 from .stream import Stream
@@ -289,7 +290,7 @@ class TransientRun:
                 "NOx_in_ppm_wet": ppm_in[:, INDEX["NO"]] + ppm_in[:, INDEX["NO2"]],
                 "NH3_in_ppm_wet": ppm_in[:, INDEX["NH3"]]}
         for sp in ("NO", "NO2", "NH3", "N2O"):
-            cols[f"{sp}_out_ppmvd"] = ppm_out[:, INDEX[sp]] / (1 - x_h2o)
+            cols[f"{sp}_out_ppmvd"] = dry_ppm(ppm_out[:, INDEX[sp]], x_h2o)
         cols["NOx_out_ppmvd"] = cols["NO_out_ppmvd"] + cols["NO2_out_ppmvd"]
         for k, name in enumerate(r.brick_names):
             cols[f"{name}_stored_NH3_g"] = r.stored_nh3_mol[:, k] * 17.031

@@ -123,3 +123,20 @@ def test_control_needs_dosing(tmp_path, capsys):
     assert main(["run", str(f)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "transient.dosing.control" in err[0]
+
+
+@pytest.mark.parametrize("command", ["size", "point"])
+def test_trace_case_with_other_commands(tmp_path, capsys, command):
+    """`size` and `point` on a trace case: exit 2 and one line saying what to use instead."""
+    f = _trace_case(tmp_path)
+    assert main([command, str(f)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "run" in err[0]
+
+
+def test_sources_of_a_trace_case(tmp_path, capsys):
+    """`sources` lists the catalysts' sources and the trace itself for a trace case."""
+    f = _trace_case(tmp_path)
+    assert main(["sources", str(f)]) == 0
+    out = capsys.readouterr().out
+    assert "vanadia" in out.lower() and "trace.csv" in out

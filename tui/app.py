@@ -426,22 +426,17 @@ class CycleApp(App):
                        markers=[tm[i]]))
 
     def _show_sources(self) -> None:
+        from aftertreat.report import sources_text
         s = self.session
-        lines = ["Sources behind these numbers (catalyst papers, correlations, cycle, limits):",
-                 ""]
-        res = s.result
-        if res is not None:
-            seen = []
-            for m in res.modes:
-                for src in m.solution.sources():
-                    if src not in seen:
-                        seen.append(src)
-            lines += [f"- {x}" for x in seen]
-        for ls in s.case.limit_sets:
-            lines.append(f"- limit set {ls.name}: {ls.source} (confidence {ls.confidence})")
-        lines += ["", "Parameter provenance of each catalyst: aftertreat catalysts KEY", "",
-                  SAFETY_NOTE]
-        self.query_one("#sources-text", Static).update(Text("\n".join(lines)))
+        if s.result is not None:
+            text = sources_text(s.result)
+        else:                                     # a trace case: no modes solved
+            text = "Sources behind these numbers:\n\n" + "\n".join(
+                f"- limit set {ls.name}: {ls.source} (confidence {ls.confidence})"
+                for ls in s.case.limit_sets)
+        text += ("\nParameter provenance of each catalyst: aftertreat catalysts KEY\n\n"
+                 + SAFETY_NOTE)
+        self.query_one("#sources-text", Static).update(Text(text))
 
     def _show_edits(self) -> None:
         s = self.session
