@@ -131,11 +131,17 @@ def apply_jacobian(model, factors, R):
         a = -np.einsum("nij,nj->ni", Binv, R)
     else:
         a = -scipy.linalg.lu_solve(lu, R[:, :, None], check_finite=False)[:, :, 0]
-    gas = np.r_[np.arange(NSP), model.iTg]
-    dx = np.empty_like(a)
-    dx[0] = a[0]
+    # only the gas unknowns (flows, then T_g: the first NSP + 1 columns) carry the coupling, so
+    # the sequential part of the recurrence runs on them alone and the rest follows in one call
+    ng = NSP + 1
+    assert model.iTg == NSP
+    Gg = G[:, :ng, :]
+    y = np.empty((len(a), ng))
+    y[0] = a[0, :ng]
     for j in range(1, len(a)):
-        dx[j] = a[j] - G[j] @ dx[j - 1, gas]
+        y[j] = a[j, :ng] - Gg[j] @ y[j - 1]
+    dx = a.copy()
+    dx[1:] -= np.einsum("nij,nj->ni", G[1:], y[:-1])
     return dx
 
 
