@@ -411,6 +411,29 @@ class Mechanism:
         self._k_ref = np.array([r.law.k_ref for r in self.reactions])
         self._E_R = np.array([r.law.E / R_GAS for r in self.reactions])
         self._inv_T_ref = np.array([1.0 / r.law.T_ref for r in self.reactions])
+        # mass-action and power-law reactions are evaluated together (one product per species
+        # and per site instead of one per reaction); the others one by one
+        group = [j for j, r in enumerate(self.reactions)
+                 if type(r.law) in (MassAction, PowerLaw)]
+        self._group = np.array(group, dtype=int)
+        self._others = [j for j in range(len(self.reactions)) if j not in group]
+        ns = len(self.sites)
+        O = np.zeros((len(group), len(SPECIES)))
+        Mc = np.zeros((len(group), ns))
+        Qf = np.zeros((len(group), ns))
+        for g, j in enumerate(group):
+            law = self.reactions[j].law
+            for i, n in law.orders.items():
+                O[g, i] = n
+            if isinstance(law, MassAction):
+                for st, m in law.coverage.items():
+                    Mc[g, st] = m
+                for st, q in law.free_sites.items():
+                    Qf[g, st] = q
+        self._orders = [(i, O[:, i], O[:, i] != np.round(O[:, i]))
+                        for i in range(len(SPECIES)) if np.any(O[:, i] != 0)]
+        self._cov = [(st, Mc[:, st], Qf[:, st]) for st in range(ns)
+                     if np.any(Mc[:, st] != 0) or np.any(Qf[:, st] != 0)]
         deps = set()
         for r in self.reactions:
             law = r.law
@@ -438,8 +461,21 @@ class Mechanism:
         out = np.empty(shape + (len(self.reactions),))
         # every rate constant in one exponential (Arrhenius, as in :func:`arrhenius`)
         k = self._k_ref * np.exp(-self._E_R * (1.0 / T[..., None] - self._inv_T_ref))
-        for j, r in enumerate(self.reactions):
-            out[..., j] = r.law(c, theta, T, k[..., j])
+        if len(self._group):
+            # the same products as _Form._conc_part and _cov_part: whole orders take c as it is,
+            # fractional ones clip at 0; coverages clipped to [0, 1]
+            g = k[..., self._group]
+            for i, e, frac in self._orders:
+                base = c[..., i][..., None]
+                if frac.any():
+                    base = np.where(frac, np.maximum(base, 0.0), base)
+                g = g * base ** e
+            for st, m, q in self._cov:
+                th = np.clip(theta[..., st], 0.0, 1.0)[..., None]
+                g = g * th ** m * (1.0 - th) ** q
+            out[..., self._group] = g
+        for j in self._others:
+            out[..., j] = self.reactions[j].law(c, theta, T, k[..., j])
         if activity != 1.0:
             out[..., self.ages] *= activity
         return out
