@@ -266,6 +266,16 @@ class _BrickModel:
             self._transfer_numbers(inlet)
             self.notes = notes
 
+    def pressure_drop(self, x: np.ndarray) -> transport.PressureDrop:
+        """Pressure drop along the brick at the state ``x`` (its solved gas temperatures) and the
+        current inlet (:func:`aftertreat.transport.pressure_drop`)."""
+        b = self.brick
+        Tg = x[:, self.iTg]
+        return transport.pressure_drop(self.d_h, b.substrate.ofa, b.substrate.shape, b.length,
+                                       self.inlet.mass_flow, self.A,
+                                       self.gas.density(Tg, self.p), self.gas.viscosity(Tg),
+                                       apparent=b.apparent_friction)
+
     def stored_nh3_mol(self, x: np.ndarray) -> float:
         """NH3 held on the storage sites [mol]: sum over nodes of Omega theta V_node."""
         if not self.ns:
@@ -546,12 +556,7 @@ def _package(model: _BrickModel, x, inlet: Stream, converged, res, its, seconds)
     n = model.n
     F = x[:, :NSP].copy()
     Tg, Ts = x[:, model.iTg].copy(), x[:, model.iTs].copy()
-    # pressure drop along the brick with the solved temperatures
-    rho = model.gas.density(Tg, model.p)
-    mu = model.gas.viscosity(Tg)
-    dp = transport.pressure_drop(model.d_h, b.substrate.ofa, b.substrate.shape, b.length,
-                                 inlet.mass_flow, model.A, rho, mu,
-                                 apparent=b.apparent_friction)
+    dp = model.pressure_drop(x)
     notes = list(model.notes)
     if dp.total_Pa > 0.5 * inlet.p:
         from .errors import InputError

@@ -519,16 +519,21 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                 progress(f"slip catalyst {L * 1e3:.0f} mm")
             return _rows(designs(L_scr, L), ("NH3",), m)
 
+        def cannot_meet(section: str, L_scr, L_asc, quantities) -> None:
+            """Record that ``section`` at its largest still fails ``quantities``."""
+            nonlocal feasible
+            feasible = False
+            res = designs(L_scr, L_asc)
+            problems.append(f"with {section} these limits still fail (best values reachable): "
+                            + "; ".join(_failing(res, quantities, m)))
+            suggestions.extend(_suggest(res, quantities, m, case))
+
         for k in range(passes):
             step = first_step if k == 0 else 1.05   # later passes start next to the answer
             L_scr, ok, _, slopes["scr"] = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step,
                                                     slopes=slopes["scr"])
             if not ok:
-                feasible = False
-                problems.append(f"with an SCR up to {scr_hi * 1e3:.0f} mm long these limits "
-                                "still fail (best values reachable): "
-                                + "; ".join(_failing(designs(L_scr, L_asc), nox, m)))
-                suggestions.extend(_suggest(designs(L_scr, L_asc), nox, m, case))
+                cannot_meet(f"an SCR up to {scr_hi * 1e3:.0f} mm long", L_scr, L_asc, nox)
                 break
             if not has_asc:
                 break
@@ -536,11 +541,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             L_asc, ok_a, _, slopes["asc"] = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step,
                                                       slopes=slopes["asc"])
             if not ok_a:
-                feasible = False
-                problems.append(f"with a slip catalyst up to {asc_hi * 1e3:.0f} mm long these "
-                                "limits still fail (best values reachable): "
-                                + "; ".join(_failing(designs(L_scr, L_asc), ("NH3",), m)))
-                suggestions.extend(_suggest(designs(L_scr, L_asc), ("NH3",), m, case))
+                cannot_meet(f"a slip catalyst up to {asc_hi * 1e3:.0f} mm long", L_scr, L_asc,
+                            ("NH3",))
                 break
             if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT \
                     and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:

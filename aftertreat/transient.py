@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import newton, transport
+from . import newton
 from .reactor import SolverSettings, _BrickModel
 from .species import INDEX, SPECIES
 from .stream import Stream
@@ -112,15 +112,6 @@ def _outlet(run: _BrickRun, inlet: Stream) -> Stream:
     m = run.model
     return Stream(F=np.maximum(run.x[-1, :NSP], 0.0), T=float(run.x[-1, m.iTg]),
                   p=inlet.p - run.dp_Pa)
-
-
-def _pressure_drop(model: _BrickModel, x, inlet: Stream) -> float:
-    b = model.brick
-    Tg = x[:, model.iTg]
-    return transport.pressure_drop(model.d_h, b.substrate.ofa, b.substrate.shape, b.length,
-                                   inlet.mass_flow, model.A, model.gas.density(Tg, model.p),
-                                   model.gas.viscosity(Tg),
-                                   apparent=b.apparent_friction).total_Pa
 
 
 def _new_model(brick, inlet: Stream) -> _BrickModel:
@@ -201,7 +192,7 @@ def advance(state: TrainState, inlet: Stream, dt: float,
         jac += its
         for k, xi in enumerate(m.extents(x)):
             reacted -= float((xi @ m.mechs[k].nu_equiv[:, _NH3]).sum())
-        run.dp_Pa = _pressure_drop(m, x, stream)
+        run.dp_Pa = m.pressure_drop(x).total_Pa
         stream = _outlet(run, stream)
         outlets.append(stream)
     state.t_s += dt
