@@ -118,6 +118,11 @@ class Brick:
             return self.heat_capacity_kJ_m3K * 1e3
         return (1.0 - self.substrate.ofa) * solid_heat_capacity_J_m3K(self.substrate.kind)
 
+    def cell_edges(self):
+        """Edges of the finite volumes along the brick [m], 0 to ``length`` (uniform)."""
+        import numpy as np
+        return np.linspace(0.0, self.length, int(self.cells) + 1)
+
     @property
     def frontal_area(self) -> float:
         """[m^2]"""

@@ -23,7 +23,7 @@ evaluations once bracketed (:func:`_smallest`). The search runs on a coarse grid
 does not comply, so it is the smallest to within the coarse grid's error (1-2 %).
 
 Each design is evaluated with :func:`aftertreat.evaluate.run_case`, warm-started from the
-nearest design already solved (states mapped by distance from the inlet, and its Jacobians).
+nearest design already solved (its states, by position along each brick, and its Jacobians).
 The diameter is the case's, or set by a face-velocity or GHSV rule at the largest exhaust flow
 of the cycle, or raised to meet the back-pressure budget.
 """
@@ -164,44 +164,11 @@ class _Designs:
             prev = self.cache[near]
             if prev.converged:
                 guesses = [m.solution for m in prev.modes]
-                if near[0] != key[0]:     # (keys are rounded: compare keys)
-                    guesses = [self._remap(g, L_scr) for g in guesses]
         res = run_case(self.case, train=self.train(L_scr, L_asc), guesses=guesses,
                        inlets=self.inlets, settings=self.settings)
         self.solves += len(res.modes)
         self.cache[key] = res
         return res
-
-
-    def _remap(self, sol, L_scr: float):
-        """Warm start for a new SCR length from a solution at another one: in plug flow the
-        state at a distance z from the inlet does not depend on what lies downstream, so the
-        old SCR states are interpolated at the new cells' positions along the section (held at
-        the old outlet beyond it); other bricks keep their states."""
-        from types import SimpleNamespace
-        scr = [b for i, b in enumerate(sol.bricks) if i in self.scr]
-        z_old, x_old, z0 = [], [], 0.0
-        for b in scr:
-            z_old.append(z0 + b.z)
-            x_old.append(b.state)
-            z0 += b.brick.length
-        z_old = np.concatenate(z_old)
-        x_old = np.concatenate(x_old)
-        bricks, z0 = [], 0.0
-        for i, b in enumerate(sol.bricks):
-            if i not in self.scr:
-                bricks.append(SimpleNamespace(state=b.state, converged=False, brick=None,
-                                              inlet=None, factors=b.factors))
-                continue
-            L_new = L_scr * b.brick.length / sum(x.brick.length for x in scr)
-            n = b.state.shape[0]
-            z_new = z0 + (np.arange(n) + 0.5) * L_new / n
-            z0 += L_new
-            x = np.stack([np.interp(z_new, z_old, x_old[:, k]) for k in range(x_old.shape[1])],
-                         axis=1)
-            bricks.append(SimpleNamespace(state=x, converged=False, brick=None, inlet=None,
-                                          factors=b.factors))
-        return SimpleNamespace(bricks=bricks)
 
 
 def _as_rows(v) -> dict:
@@ -302,47 +269,17 @@ def _smallest(f, x0: float, lo: float, hi: float, tol: float = SIZING_TOL, step:
 
 
 def _refine_guesses(res, train) -> list:
-    """Coarse-grid states interpolated along each brick onto ``train``'s cells, as warm-start
-    guesses. A brick whose washcoat nodes differ keeps a state of the wrong shape, which the
-    solver ignores (it starts that brick afresh)."""
-    from types import SimpleNamespace
+    """Coarse-grid states mapped onto ``train``'s grid (along each brick and across its
+    washcoat nodes, :meth:`aftertreat.solver.WarmStart.onto`), as warm-start guesses."""
+    from .problem import problem_for
     out = []
     for m in res.modes:
-        bricks = []
+        row = []
         for sol, b in zip(m.solution.bricks, train.bricks):
-            xc = sol.state
-            nc, nf = xc.shape[0], int(b.cells)
-            zc = (np.arange(nc) + 0.5) / nc
-            zf = (np.arange(nf) + 0.5) / nf
-            xf = np.stack([np.interp(zf, zc, xc[:, k]) for k in range(xc.shape[1])], axis=1)
-            if sol.brick.nodes_per_layer != b.nodes_per_layer and b.washcoat == "resolved":
-                xf = _renode(xf, sol.brick, b, len(sol.film_species))
-            bricks.append(SimpleNamespace(state=xf, converged=False, brick=None, inlet=None))
-        out.append(SimpleNamespace(bricks=bricks))
+            prob = problem_for(b)
+            row.append(sol.warm_start.onto(prob.layout, prob.z_edges))
+        out.append(row)
     return out
-
-
-def _renode(x, old, new, nf: int):
-    """Map the washcoat-node unknowns of a resolved brick from ``old.nodes_per_layer`` to
-    ``new.nodes_per_layer`` nodes per layer, interpolating in depth within each layer."""
-    from .reactor import NSP, _node_shares
-    n_layers = len(new.catalysts)
-    no, nn = int(old.nodes_per_layer), int(new.nodes_per_layer)
-    ns_total = (x.shape[1] - NSP - 2 - n_layers * no * nf) // (n_layers * no)
-    ic = NSP + 2
-    cold = x[:, ic: ic + n_layers * no * nf].reshape(len(x), n_layers, no, nf)
-    thold = x[:, ic + n_layers * no * nf:].reshape(len(x), n_layers, no, ns_total)
-    do = np.cumsum(_node_shares(no)) - _node_shares(no) / 2          # node centres, 0..1
-    dn = np.cumsum(_node_shares(nn)) - _node_shares(nn) / 2
-    cnew = np.empty((len(x), n_layers, nn, nf))
-    thnew = np.empty((len(x), n_layers, nn, ns_total))
-    for k in range(n_layers):
-        for j in range(nf):
-            cnew[:, k, :, j] = np.array([np.interp(dn, do, row) for row in cold[:, k, :, j]])
-        for j in range(ns_total):
-            thnew[:, k, :, j] = np.array([np.interp(dn, do, row) for row in thold[:, k, :, j]])
-    return np.concatenate([x[:, :ic], cnew.reshape(len(x), -1), thnew.reshape(len(x), -1)],
-                          axis=1)
 
 
 def _grow(f, x0: float, hi: float, slopes: dict | None = None, max_evals: int = 8) -> float:

@@ -44,24 +44,26 @@ class Train:
               guess: "TrainSolution | None" = None) -> "TrainSolution":
         """Steady state of the train fed by ``inlet`` (the stream at the first brick's face).
 
-        ``guess`` is a previous solution of the same train layout (same cell counts) used to
-        warm-start each brick; sizing loops and what-ifs pass it in. A brick of ``guess`` that is
+        ``guess`` is a previous solution of a train like this one (or a list holding a
+        :class:`~aftertreat.solver.WarmStart` or None per brick) used to warm-start each brick;
+        sizing loops and what-ifs pass it in. A brick of ``guess`` that is
         the same problem as now (same brick, same inlet) is reused without solving.
         """
         t0 = time.perf_counter()
         sols: list[BrickSolution] = []
         stream = inlet
         for i, b in enumerate(self.bricks):
-            g = jac = None
-            if guess is not None and i < len(guess.bricks):
-                prev = guess.bricks[i]
-                if prev.converged and _same_brick(prev.brick, b) and _same_stream(prev.inlet,
-                                                                                  stream):
+            g = None
+            prevs = guess.bricks if isinstance(guess, TrainSolution) else guess
+            if prevs is not None and i < len(prevs):
+                prev = prevs[i]
+                if (isinstance(prev, BrickSolution) and prev.converged
+                        and _same_brick(prev.brick, b) and _same_stream(prev.inlet, stream)):
                     sols.append(prev)           # same brick, same inlet: the same steady state
                     stream = prev.outlet
                     continue
-                g, jac = prev.state, getattr(prev, "factors", None)
-            sol = solve_brick(b, stream, guess=g, settings=settings, factors=jac)
+                g = prev.warm_start if isinstance(prev, BrickSolution) else prev
+            sol = solve_brick(b, stream, guess=g, settings=settings)
             sols.append(sol)
             stream = sol.outlet
         return TrainSolution(train=self, inlet=inlet, bricks=sols,

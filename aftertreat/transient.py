@@ -1,7 +1,7 @@
 """Transient behaviour of a catalyst train: NH3 storage and brick temperature over time.
 
 The gas crosses a brick in milliseconds, while the NH3 stored on the catalyst and the brick's
-temperature change over seconds to minutes (MODEL.md sections 6-7). So the gas is taken as
+temperature change over seconds to minutes (``docs/model.md``). So the gas is taken as
 quasi-steady and only coverage and solid temperature carry time derivatives, per cell (and per
 washcoat node and storage site)::
 
@@ -9,27 +9,38 @@ washcoat node and storage site)::
     C_cell dT_s/dt      = sum_r (-dH_r) xi_r - F c_p (T_g,j - T_g,j-1) - U pi D dz (T_s - T_amb)
                           [+ axial conduction k_ax A d2T_s/dz2 dz, optional]
 
-with the gas rows of :mod:`aftertreat.reactor` (now using the gas stoichiometry: adsorption takes
-NH3 out of the gas). Each time step is one implicit-Euler step of the whole brick, solved by the
-steady solver's Newton machinery (:meth:`aftertreat.reactor._BrickModel.begin_step`): the
-storage terms add a diagonal to the Jacobian, and the factored Jacobian of one step serves as the
-chord for the next ones while it contracts (:func:`aftertreat.newton.iterate`). Implicit Euler is
-L-stable, so steps of the trace's own interval (1 s) are stable whatever the stiffness of the
-storage kinetics; it is first-order accurate in time. Bricks are stepped in flow order, each fed
-by its upstream brick's outlet at the new time.
+with the gas rows of :mod:`aftertreat.reactor` using the gas stoichiometry (adsorption takes
+NH3 out of the gas). Each step is one implicit-Euler step of every brick in flow order, each fed
+by its upstream brick's outlet at the new time; the step is the brick residual with the old
+state and 1/dt as data (:func:`aftertreat.solver.step`), solved by the same march as the
+steady state, with the previous step's Jacobian factors as chords.
 
-Axial conduction in the solid (off by default) is applied after each step as an implicit
-diffusion step on T_s (Lie splitting; conserves the brick's heat and is unconditionally stable),
-with k_ax = (1 - OFA) k_solid.
+Error-controlled steps. Between two samples of the input (a trace's own time grid) the inlet
+is taken linear in time, and the interval is crossed in as many implicit-Euler sub-steps as a
+local error estimate asks for. The estimate compares each step's result with the linear
+extrapolation of the two states before it: for implicit Euler with that predictor the local
+error is about h/(h + h_prev) (x - x_pred) (the predictor-corrector estimate of variable-step
+BDF codes; Hairer & Wanner 1996, ch. III.7; Shampine 1994, ch. 4). It is measured on the
+coverages and solid temperatures against ``atol_coverage + rtol |theta|`` and
+``atol_T_K + rtol |T|``; a step above 1 is redone shorter, and the next step is sized
+h <- h min(4, max(0.2, 0.9 / sqrt(err))). Implicit Euler is L-stable, so any step is stable;
+the control is for accuracy (a hot step releasing stored NH3 changes the coverage within
+seconds, a breakthrough front over minutes). Results are reported on the input's own grid,
+with the sub-steps counted.
 
-Conservation: at a converged step the NH3 that enters minus what leaves equals the NH3 destroyed
-by reaction (gas or stored, ``nu_equiv``) plus the change of the amount stored, to the solver
-tolerance; :class:`TransientResult` keeps the four totals.
+Axial conduction in the solid (off by default) is applied after each sub-step as an implicit
+diffusion step on T_s (Lie splitting; conserves the brick's heat, unconditionally stable), with
+k_ax = (1 - OFA) k_solid.
+
+Conservation: at converged steps the NH3 that enters minus what leaves equals the NH3 destroyed
+by reaction (gas or stored, ``nu_equiv``) plus the change of the amount stored, summed over the
+sub-steps as implicit Euler sums them; :meth:`TransientResult.nh3_account` holds the totals.
 
 References
 ----------
 Hairer, E. and Wanner, G. (1996). Solving Ordinary Differential Equations II: Stiff and
-    Differential-Algebraic Problems, 2nd ed., Springer (implicit Euler for index-1 DAEs).
+    Differential-Algebraic Problems, 2nd ed., Springer (implicit Euler, step-size control).
+Shampine, L.F. (1994). Numerical Solution of Ordinary Differential Equations. Chapman & Hall.
 Redhead, P.A. (1962). Thermal desorption of gases. Vacuum 12, 203-211 (used in the tests).
 """
 from __future__ import annotations
@@ -39,8 +50,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import newton
-from .reactor import SolverSettings, _BrickModel
+from . import solver
+from .problem import BoundProblem, BrickProblem, problem_for
+from .solver import SolverSettings
 from .species import INDEX, SPECIES
 from .stream import Stream
 
@@ -52,73 +64,86 @@ _NH3 = INDEX["NH3"]
 
 @dataclass
 class TransientSettings:
-    """Solver settings of a transient run.
+    """Settings of a transient run.
 
     ``tol`` is the scaled residual of each step (species rows as a fraction of the inlet flow:
-    1e-8 is 0.01 ppm); ``conduction`` switches axial heat conduction in the brick solid on,
-    with ``k_solid_W_mK`` the solid's conductivity (cordierite and titania about 1-3 W/(m K),
-    from memory).
+    1e-8 is 0.01 ppm). ``error_control`` sub-steps each input interval as the local error
+    estimate asks (module docstring), with tolerances ``atol_coverage`` [-], ``atol_T_K`` [K]
+    and ``rtol`` [-], steps no shorter than ``dt_min_s`` and at most ``max_substeps`` per
+    interval; without it, one implicit-Euler step per input interval. ``conduction`` switches
+    axial heat conduction in the brick solid on, with ``k_solid_W_mK`` the solid's
+    conductivity (cordierite and titania about 1-3 W/(m K), from memory).
     """
     tol: float = 1e-8
     tol_accept: float = 1e-7
-    max_newton: int = 20
-    max_ptc_steps: int = 100
+    error_control: bool = True
+    atol_coverage: float = 2e-3
+    atol_T_K: float = 0.2
+    rtol: float = 0.0
+    dt_min_s: float = 1e-3
+    max_substeps: int = 2000
     conduction: bool = False
     k_solid_W_mK: float = 1.5
+    kernel: str | None = None
 
     def solver(self) -> SolverSettings:
-        return SolverSettings(tol=self.tol, tol_accept=self.tol_accept,
-                              max_newton=self.max_newton, max_ptc_steps=self.max_ptc_steps)
+        # the flow rows close to tol per cell, so the atoms to ~cells x tol; the energy account
+        # to ~cells x 1e3 tol K (module docstring of aftertreat.solver)
+        return SolverSettings(tol=self.tol, tol_accept=self.tol_accept, kernel=self.kernel,
+                              balance_tol=max(1e-9, 1e3 * self.tol_accept),
+                              energy_tol_K=0.05 + 1e4 * self.tol_accept)
 
 
-@dataclass
+@dataclass(eq=False)
 class _BrickRun:
-    """One brick during a transient run: its model, its state and the Jacobian kept."""
-    model: _BrickModel
+    """One brick during a transient run: its problem bound to the current inlet, its state and
+    the Jacobian factors kept as chords."""
+    problem: BrickProblem
+    bound: BoundProblem | None
     x: np.ndarray
-    factors: tuple | None = None
+    factors: object = None
     dp_Pa: float = 0.0
-    x_prev: np.ndarray | None = None          # the state one step earlier (for the predictor)
-    dt_prev: float = 0.0
+
+    @property
+    def layout(self):
+        return self.problem.layout
 
 
-@dataclass
+@dataclass(eq=False)
 class TrainState:
-    """The state of every brick of a train at one time (what a step starts from)."""
+    """The state of every brick of a train at one time (what a step starts from), with the
+    two states before it (for the error estimate's predictor)."""
     train: object
     bricks: list[_BrickRun]
     t_s: float = 0.0
+    history: tuple | None = None          # (states one step earlier, that step's length)
 
     def stored_nh3_mol(self) -> np.ndarray:
         """NH3 stored in each brick [mol]."""
-        return np.array([b.model.stored_nh3_mol(b.x) for b in self.bricks])
+        return np.array([b.problem.stored_nh3_mol(b.x) for b in self.bricks])
 
     def capacity_mol(self) -> np.ndarray:
         """NH3 storage capacity of each brick [mol] (every site full)."""
-        out = []
-        for b in self.bricks:
-            m = b.model
-            full = b.x.copy()
-            full[:, m.ith0:] = 1.0
-            out.append(m.stored_nh3_mol(full))
-        return np.array(out)
+        return np.array([b.problem.capacity_mol() for b in self.bricks])
 
     def solid_T_K(self) -> list[np.ndarray]:
         """Solid temperature along each brick [K]."""
-        return [b.x[:, b.model.iTs].copy() for b in self.bricks]
+        return [b.layout.T_solid(b.x).copy() for b in self.bricks]
+
+    def set_coverage(self, value: float) -> None:
+        """Set every used storage site of every brick to the coverage ``value`` (e.g. a
+        saturated brick before a desorption run)."""
+        for b in self.bricks:
+            used = b.problem.static.site_used > 0
+            cov = b.layout.coverage(b.x)
+            cov[:] = np.where(used[None], value, 0.0)
+        self.history = None
 
 
 def _outlet(run: _BrickRun, inlet: Stream) -> Stream:
-    m = run.model
-    return Stream(F=np.maximum(run.x[-1, :NSP], 0.0), T=float(run.x[-1, m.iTg]),
+    lay = run.layout
+    return Stream(F=lay.flows(run.x)[-1].copy(), T=float(lay.T_gas(run.x)[-1]),
                   p=inlet.p - run.dp_Pa)
-
-
-def _new_model(brick, inlet: Stream) -> _BrickModel:
-    m = _BrickModel(brick, inlet)
-    m.begin_transient()
-    m.prefer_inverse = True          # one Jacobian serves many steps: invert once, apply cheaply
-    return m
 
 
 def start(train, inlet: Stream, *, steady: bool = True, T_start_K: float | None = None,
@@ -133,27 +158,28 @@ def start(train, inlet: Stream, *, steady: bool = True, T_start_K: float | None 
     runs = []
     if steady:
         sol = train.solve(inlet, settings=st.solver())
-        stream = inlet
         for b, bs in zip(train.bricks, sol.bricks):
-            m = _new_model(b, stream)
-            runs.append(_BrickRun(model=m, x=bs.state.copy(), factors=None, dp_Pa=bs.dp.total_Pa))
-            stream = bs.outlet
+            prob = problem_for(b)
+            runs.append(_BrickRun(problem=prob, bound=None, x=bs.state.copy(),
+                                  dp_Pa=bs.dp.total_Pa))
         return TrainState(train=train, bricks=runs)
     T0 = inlet.T if T_start_K is None else float(T_start_K)
     stream = inlet
     for b in train.bricks:
-        m = _new_model(b, stream)
-        x = m.initial_state()
-        x[:, m.ith0:] = 0.0
-        x[:, m.iTs] = T0
-        x[:, m.iTg] = T0
-        runs.append(_BrickRun(model=m, x=x))
+        prob = problem_for(b)
+        bound = prob.bind(stream)
+        x = bound.inlet_state()
+        lay = prob.layout
+        lay.coverage(x)[:] = 0.0
+        x[:, lay.T_SOLID] = T0
+        x[:, lay.T_GAS] = T0
+        runs.append(_BrickRun(problem=prob, bound=bound, x=x))
     return TrainState(train=train, bricks=runs)
 
 
 @dataclass
 class StepRecord:
-    """What one step produced (flows in mol/s, temperatures in K)."""
+    """What one (sub-)step produced (flows in mol/s, temperatures in K)."""
     outlet: Stream
     brick_outlets: list[Stream]
     converged: bool
@@ -162,68 +188,106 @@ class StepRecord:
     jacobians: int
 
 
-def advance(state: TrainState, inlet: Stream, dt: float,
-            settings: TransientSettings | None = None) -> StepRecord:
-    """Advance ``state`` by one implicit-Euler step of ``dt`` [s] with ``inlet`` at the new time.
-
-    The state is updated in place (``state.t_s`` too). Never raises on non-convergence: the
-    record carries ``converged`` and the worst brick residual.
-    """
-    st = settings or TransientSettings()
-    solver = st.solver()
+def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings, ss):
+    """One implicit-Euler step of every brick from ``state`` (not committed): the new states,
+    bound problems, factors and pressure drops, and the step's record."""
     stream = inlet
-    outlets = []
+    new, outlets = [], []
     ok, worst, reacted, jac = True, 0.0, 0.0, 0
     for run in state.bricks:
-        m = run.model
-        m.set_inlet(stream)
-        m.begin_step(run.x, dt, m.brick.heat_capacity_J_m3K)
-        guess = run.x
-        if run.x_prev is not None and run.dt_prev > 0:
-            # linear predictor from the last two states (a guess only: Newton decides)
-            guess = m.clip(run.x + (run.x - run.x_prev) * (dt / run.dt_prev))
-        x, its, res, run.factors = newton.iterate(m, guess, solver, run.factors)
-        m.step = None
-        run.x_prev, run.dt_prev, run.x = run.x, dt, x
+        bound = run.problem.bind(stream, like=run.bound)
+        out = solver.step(bound, run.x, dt, factors=run.factors, settings=ss)
+        x = out.x
         if st.conduction:
-            _conduct(m, x, dt, st.k_solid_W_mK)
-        ok = ok and res < st.tol_accept
-        worst = max(worst, res)
-        jac += its
-        for k, xi in enumerate(m.extents(x)):
-            reacted -= float((xi @ m.mechs[k].nu_equiv[:, _NH3]).sum())
-        run.dp_Pa = m.pressure_drop(x).total_Pa
-        stream = _outlet(run, stream)
+            _conduct(run.problem, x, dt, st.k_solid_W_mK)
+        ok = ok and out.converged
+        worst = max(worst, out.residual)
+        jac += out.jacobians
+        nu = run.problem.static.nu_equiv[:, _NH3]
+        reacted -= float((out.extents @ nu).sum())
+        dp = bound.pressure_drop(x).total_Pa
+        new.append((bound, x, out.factors, dp))
+        lay = run.layout
+        stream = Stream(F=lay.flows(x)[-1].copy(), T=float(lay.T_gas(x)[-1]), p=stream.p - dp)
         outlets.append(stream)
+    rec = StepRecord(outlet=stream, brick_outlets=outlets, converged=ok, residual=worst,
+                     reacted_nh3_mol_s=reacted, jacobians=jac)
+    return new, rec
+
+
+def _commit(state: TrainState, new, dt: float) -> None:
+    state.history = ([r.x for r in state.bricks], dt)
+    for run, (bound, x, factors, dp) in zip(state.bricks, new):
+        run.bound, run.x, run.factors, run.dp_Pa = bound, x, factors, dp
     state.t_s += dt
-    return StepRecord(outlet=stream, brick_outlets=outlets, converged=ok, residual=worst,
-                      reacted_nh3_mol_s=reacted, jacobians=jac)
 
 
-def _conduct(m: _BrickModel, x, dt: float, k_solid: float) -> None:
+def advance(state: TrainState, inlet: Stream, dt: float,
+            settings: TransientSettings | None = None) -> StepRecord:
+    """Advance ``state`` by one implicit-Euler step of ``dt`` [s] with ``inlet`` at the new time
+    (no sub-steps). The state is updated in place (``state.t_s`` too). Never raises on
+    non-convergence: the record carries ``converged`` and the worst brick residual."""
+    st = settings or TransientSettings()
+    new, rec = _step_all(state, inlet, dt, st, st.solver())
+    _commit(state, new, dt)
+    return rec
+
+
+def _error(state: TrainState, new, h: float, st: TransientSettings) -> float:
+    """Scaled local error estimate of a step of ``h`` (module docstring); 0 without history."""
+    if state.history is None:
+        prev, h_prev = [r.x for r in state.bricks], h      # a start at rest: derivative 0
+    else:
+        prev, h_prev = state.history
+    worst = 0.0
+    w = h / (h + h_prev)
+    for run, xp, (_, x, _, _) in zip(state.bricks, prev, new):
+        lay = run.layout
+        pred = run.x + (run.x - xp) * (h / h_prev)
+        e = w * (x - pred)
+        used = run.problem.static.site_used > 0
+        cov = np.abs(lay.coverage(e))[:, used]
+        if cov.size:
+            sc = st.atol_coverage + st.rtol * np.abs(lay.coverage(x)[:, used])
+            worst = max(worst, float(np.max(cov / sc)))
+        eT = np.abs(lay.T_solid(e))
+        sc = st.atol_T_K + st.rtol * np.abs(lay.T_solid(x))
+        worst = max(worst, float(np.max(eT / sc)))
+    return worst
+
+
+def _conduct(prob: BrickProblem, x, dt: float, k_solid: float) -> None:
     """Implicit axial conduction step on T_s (insulated brick faces), in place:
-    C (T - T*)/dt = k_ax A (T_{j+1} - 2 T_j + T_{j-1})/dz, a tridiagonal solve."""
+    C_j (T_j - T*_j)/dt = k_ax A [(T_j+1 - T_j)/dz_j+1/2 - (T_j - T_j-1)/dz_j-1/2], a
+    tridiagonal solve."""
     from scipy.linalg import solve_banded
-    n = m.n
-    k_ax = (1.0 - m.brick.substrate.ofa) * k_solid
-    C = m.brick.heat_capacity_J_m3K * m.A * m.dz                 # J/K per cell
-    g = k_ax * m.A / m.dz * dt / C                                # conductance x dt / C
+    b, st = prob.brick, prob.static
+    n = st.n
+    k_ax = (1.0 - b.substrate.ofa) * k_solid
+    zc = 0.5 * (prob.z_edges[:-1] + prob.z_edges[1:])
+    g = k_ax * b.frontal_area / np.diff(zc) * dt                  # [n-1] W/K x s
+    C = st.C_cell                                                  # J/K per cell
     ab = np.zeros((3, n))
+    ab[1] = C
+    ab[1, :-1] += g
+    ab[1, 1:] += g
     ab[0, 1:] = -g
     ab[2, :-1] = -g
-    ab[1] = 1.0 + 2.0 * g
-    ab[1, 0] = ab[1, -1] = 1.0 + g
-    x[:, m.iTs] = solve_banded((1, 1), ab, x[:, m.iTs])
+    col = prob.layout.T_SOLID
+    x[:, col] = solve_banded((1, 1), ab, C * x[:, col])
 
 
 @dataclass
 class TransientResult:
     """Time series of a transient run, with the NH3 account.
 
-    Arrays are per time point ``t_s`` [s] (the first point is the starting state): ``inlet_F``,
-    ``outlet_F`` [N, nspecies] mol/s, ``inlet_T_K``, ``outlet_T_K``, ``stored_nh3_mol``
-    [N, nbricks], ``solid_T_mean_K`` and ``solid_T_max_K`` [N, nbricks], ``reacted_nh3_mol_s``,
-    ``converged``, ``residual``, ``jacobians``.
+    Arrays are per time point ``t_s`` [s] of the input (the first point is the starting
+    state): ``inlet_F``, ``outlet_F`` [N, nspecies] mol/s, ``inlet_T_K``, ``outlet_T_K``,
+    ``stored_nh3_mol`` [N, nbricks], ``solid_T_mean_K`` and ``solid_T_max_K`` [N, nbricks],
+    ``reacted_nh3_mol_s``, ``converged``, ``residual``, ``jacobians``, ``substeps`` (implicit-
+    Euler steps taken over the interval ending at each point) and ``rejected`` (steps redone
+    shorter); per interval the amounts that crossed it as the scheme sums them: ``inlet_mol``,
+    ``outlet_mol`` [N, nspecies] and ``reacted_nh3_mol`` [N].
     """
     t_s: np.ndarray
     inlet_F: np.ndarray
@@ -238,16 +302,20 @@ class TransientResult:
     residual: np.ndarray
     jacobians: np.ndarray
     brick_names: list[str]
+    substeps: np.ndarray | None = None
+    rejected: np.ndarray | None = None
+    inlet_mol: np.ndarray | None = None
+    outlet_mol: np.ndarray | None = None
+    reacted_nh3_mol: np.ndarray | None = None
     seconds: float = 0.0
     extra: dict = field(default_factory=dict)
 
     def nh3_account(self) -> dict:
-        """NH3 in, out, destroyed and the change in storage over the run [mol], as implicit
-        Euler sums them (each step's rates at its end time, times its dt)."""
-        dt = np.diff(self.t_s)
-        n_in = float(dt @ self.inlet_F[1:, _NH3])
-        n_out = float(dt @ self.outlet_F[1:, _NH3])
-        n_react = float(dt @ self.reacted_nh3_mol_s[1:])
+        """NH3 in, out, destroyed and the change in storage over the run [mol], summed over
+        the implicit-Euler sub-steps as the scheme takes them."""
+        n_in = float(self.inlet_mol[:, _NH3].sum())
+        n_out = float(self.outlet_mol[:, _NH3].sum())
+        n_react = float(self.reacted_nh3_mol.sum())
         d_store = float(self.stored_nh3_mol[-1].sum() - self.stored_nh3_mol[0].sum())
         return {"in_mol": n_in, "out_mol": n_out, "reacted_mol": n_react,
                 "stored_change_mol": d_store,
@@ -258,16 +326,27 @@ class TransientResult:
         return bool(np.all(self.converged))
 
 
+def _blend(a: Stream, b: Stream, w: float) -> Stream:
+    """The inlet a fraction ``w`` of the way from sample ``a`` to sample ``b`` (linear)."""
+    if w >= 1.0:
+        return b
+    return Stream(F=(1.0 - w) * a.F + w * b.F, T=(1.0 - w) * a.T + w * b.T,
+                  p=(1.0 - w) * a.p + w * b.p)
+
+
 def simulate(train, times, inlets, *, state: TrainState | None = None,
              settings: TransientSettings | None = None, progress=None) -> TransientResult:
     """Run ``train`` through a time series.
 
     ``times`` [s] (increasing); ``inlets`` gives the train inlet at each time: a list of
     :class:`Stream`, or a callable ``inlets(i, state) -> Stream`` (a dosing controller sees the
-    state before step i). The run starts from ``state`` (default: the steady state at the first
-    inlet, :func:`start`) and takes one implicit-Euler step per interval.
+    state at sample i - 1). The run starts from ``state`` (default: the steady state at the
+    first inlet, :func:`start`); each interval is crossed in error-controlled implicit-Euler
+    sub-steps with the inlet linear in time (module docstring), or in one step when
+    ``settings.error_control`` is off.
     """
     st = settings or TransientSettings()
+    ss = st.solver()
     t0 = time.perf_counter()
     times = np.asarray(times, dtype=float)
     if times.ndim != 1 or len(times) < 2 or np.any(np.diff(times) <= 0):
@@ -277,8 +356,7 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
     if state is None:
         state = start(train, first, settings=st)
     N, nb = len(times), len(state.bricks)
-    inF = np.empty((N, NSP))
-    outF = np.empty((N, NSP))
+    inF, outF = np.empty((N, NSP)), np.empty((N, NSP))
     inT, outT = np.empty(N), np.empty(N)
     stored = np.empty((N, nb))
     Tmean, Tmax = np.empty((N, nb)), np.empty((N, nb))
@@ -286,33 +364,77 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
     conv = np.ones(N, dtype=bool)
     resid = np.zeros(N)
     jac = np.zeros(N, dtype=int)
+    subs = np.zeros(N, dtype=int)
+    rej = np.zeros(N, dtype=int)
+    in_mol, out_mol = np.zeros((N, NSP)), np.zeros((N, NSP))
+    reacted_mol = np.zeros(N)
 
     def record(i, inlet, outlet):
         inF[i], inT[i] = inlet.F, inlet.T
         outF[i], outT[i] = outlet.F, outlet.T
         stored[i] = state.stored_nh3_mol()
         for k, b in enumerate(state.bricks):
-            Ts = b.x[:, b.model.iTs]
+            Ts = b.layout.T_solid(b.x)
             Tmean[i, k] = Ts.mean()
             Tmax[i, k] = Ts.max()
 
-    # the starting point: outlet of the starting state
     stream = first
     for run in state.bricks:
         stream = _outlet(run, stream)
     record(0, first, stream)
     state.t_s = float(times[0])
+    prev_inlet = first
+    h_next = float(times[1] - times[0])
     for i in range(1, N):
         if progress is not None:
             progress(i, N)
         inlet = get(i, state)
-        rec = advance(state, inlet, float(times[i] - times[i - 1]), st)
+        t_a, t_b = float(times[i - 1]), float(times[i])
+        span = t_b - t_a
+        if not st.error_control:
+            new, rec = _step_all(state, inlet, span, st, ss)
+            _commit(state, new, span)
+            steps = [(span, rec, inlet)]
+        else:
+            steps = []
+            t = t_a
+            h = min(h_next, span)
+            while t < t_b - 1e-12 * span:
+                rest = t_b - t
+                last = h >= rest or rest - h < 0.2 * h or len(steps) + 1 >= st.max_substeps
+                h_try = rest if last else h
+                w = (t + h_try - t_a) / span
+                s_in = _blend(prev_inlet, inlet, w)
+                new, rec = _step_all(state, s_in, h_try, st, ss)
+                err = _error(state, new, h_try, st) if rec.converged else np.inf
+                hmin = min(st.dt_min_s, rest)
+                if err > 1.0 and h_try > hmin and len(steps) + rej[i] < st.max_substeps:
+                    rej[i] += 1
+                    h = max(hmin, h_try * min(0.9, max(0.2, 0.9 / np.sqrt(err))))
+                    continue
+                _commit(state, new, h_try)
+                steps.append((h_try, rec, s_in))
+                t += h_try
+                grow = min(4.0, max(0.2, 0.9 / np.sqrt(max(err, 1e-12))))
+                h = max(h_try * grow, h) if (last and h_try < h and err <= 1.0) else h_try * grow
+                h = max(h, st.dt_min_s)
+            h_next = max(h, st.dt_min_s)
+        rec = steps[-1][1]
         record(i, inlet, rec.outlet)
-        reacted[i], conv[i], resid[i], jac[i] = (rec.reacted_nh3_mol_s, rec.converged,
-                                                 rec.residual, rec.jacobians)
+        conv[i] = all(s[1].converged for s in steps)
+        resid[i] = max(s[1].residual for s in steps)
+        jac[i] = sum(s[1].jacobians for s in steps)
+        reacted[i] = rec.reacted_nh3_mol_s
+        subs[i] = len(steps)
+        for h, r, s_in in steps:
+            in_mol[i] += h * s_in.F
+            out_mol[i] += h * r.outlet.F
+            reacted_mol[i] += h * r.reacted_nh3_mol_s
+        prev_inlet = inlet
     return TransientResult(t_s=times.copy(), inlet_F=inF, inlet_T_K=inT, outlet_F=outF,
                            outlet_T_K=outT, stored_nh3_mol=stored, solid_T_mean_K=Tmean,
                            solid_T_max_K=Tmax, reacted_nh3_mol_s=reacted, converged=conv,
                            residual=resid, jacobians=jac,
-                           brick_names=[b.model.brick.name for b in state.bricks],
-                           seconds=time.perf_counter() - t0)
+                           brick_names=[b.problem.brick.name for b in state.bricks],
+                           substeps=subs, rejected=rej, inlet_mol=in_mol, outlet_mol=out_mol,
+                           reacted_nh3_mol=reacted_mol, seconds=time.perf_counter() - t0)
