@@ -33,7 +33,7 @@ IT_S = NSP + 1
 NODE0 = NSP + 2
 NG = NSP + 2
 T_WEIGHT = 1e-3
-_FLOOR = 1e-3
+_FLOOR = 1e-12
 _TMIN, _TMAX = 200.0, 2000.0
 
 #: a Newton step (fresh Jacobian) smaller than this, relative to the unknowns, means the cell
@@ -42,7 +42,10 @@ _TMIN, _TMAX = 200.0, 2000.0
 STEP_TOL = 1e-10
 STALL_TOL = 1e-7
 
-_jit = njit(cache=True, nogil=True)
+# No reference counting inside the kernel: every array is allocated in Python (``Work``), so
+# the runtime's per-call reference counts of the many arrays in the problem tuples (measured:
+# ~3 us per internal call) are not needed.
+_jit = njit(cache=True, nogil=True, _nrt=False)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -60,11 +63,11 @@ def cell_mean(c_in, c_out):
         lm = 0.5 * (a + b)
     else:
         lm = (a - b) / lnr
-    if lnr > 1e-6:
-        slope = (a / b - 1.0 - lnr) / (lnr * lnr)
-    else:
-        slope = 0.5
-    return lm + slope * min(c_out - b, 0.0)
+    if c_out >= b:
+        return lm
+    # below the floor: lm (c_out/b)^s, the power law that meets the log mean with its slope
+    s = (a / b - 1.0 - lnr) / (lnr * lnr) * b / lm
+    return lm * (max(c_out, 0.0) / b) ** s
 
 
 @_jit
@@ -142,14 +145,14 @@ def _cpow(c, e, frac):
 # rates
 # ---------------------------------------------------------------------------------------------
 @_jit
-def _temp_pieces(st, fl, Ts, kT, kinv, inhK, dH, Deff, Dm):
+def _temp_pieces(st, fl, Ts, kT, kinv, inhK, dH, Deff, Dm, lam):
     """Everything of the rates that depends on the solid temperature only."""
     inv = 1.0 / Ts
     for q in range(st.nrxn):
         v = st.k_ref[q] * math.exp(-st.E_R[q] * (inv - st.inv_Tref[q]))
         if st.ages[q] > 0.0:
             v *= st.activity
-        kT[q] = v
+        kT[q] = v * lam
         if st.rev[q] >= 0:
             kinv[q] = math.exp(-_tab(st.TlnKc_tab, st.T_tab0, Ts, st.rev[q]) * inv)
         if st.inh_p[q] > 0.0:
@@ -170,9 +173,9 @@ def _temp_pieces(st, fl, Ts, kT, kinv, inhK, dH, Deff, Dm):
 
 
 @_jit
-def _node_rates(st, n, x, base, Ts, kT, kinv, inhK, Deff, r):
-    """Rates of the reactions of node ``n``'s layer into ``r`` (global reaction index); the
-    node's unknowns start at ``x[base]``."""
+def _node_rates(st, n, x, base, Ts, kT, kinv, inhK, Deff, r, row):
+    """Rates of the reactions of node ``n``'s layer into ``r[row]`` (global reaction index);
+    the node's unknowns start at ``x[base]``."""
     nf = st.nf
     layer = st.node_layer[n]
     lo, hi = st.rxn_lo[layer], st.rxn_hi[layer]
@@ -218,14 +221,14 @@ def _node_rates(st, n, x, base, Ts, kT, kinv, inhK, Deff, r):
                 if inhK[q, f] != 0.0:
                     den += inhK[q, f] * max(x[base + f], 0.0)
             v /= den if p == 1.0 else den ** p
-        r[q] = v
+        r[row, q] = v
     if st.effectiveness:
         for kk in range(nf):
             kv = 0.0
             hit = False
             for q in range(lo, hi):
                 if st.key[q] == kk:
-                    kv += st.key_nu[q] * r[q]
+                    kv += st.key_nu[q] * r[row, q]
                     hit = True
             if not hit:
                 continue
@@ -237,18 +240,18 @@ def _node_rates(st, n, x, base, Ts, kT, kinv, inhK, Deff, r):
             eta = math.tanh(phi) / phi if phi > 1e-6 else 1.0 - phi * phi / 3.0
             for q in range(lo, hi):
                 if st.key[q] == kk:
-                    r[q] *= eta
+                    r[row, q] *= eta
 
 
 @_jit
 def _all_rates(st, fl, x, W):
     Ts = x[IT_S]
-    _temp_pieces(st, fl, Ts, W.kT, W.kinv, W.inhK, W.dH, W.Deff, W.Dm)
+    _temp_pieces(st, fl, Ts, W.kT, W.kinv, W.inhK, W.dH, W.Deff, W.Dm, W.lam[0])
     nb = st.nf + st.ns
     for n in range(st.nnode):
         for q in range(st.nrxn):
             W.r[n, q] = 0.0
-        _node_rates(st, n, x, NODE0 + n * nb, Ts, W.kT, W.kinv, W.inhK, W.Deff, W.r[n])
+        _node_rates(st, n, x, NODE0 + n * nb, Ts, W.kT, W.kinv, W.inhK, W.Deff, W.r, n)
 
 
 @_jit
@@ -422,10 +425,10 @@ def jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm):
                 h = -h
             xp[col] = x[col] + h
             h = xp[col] - x[col]
-            _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp)
+            _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp, 0)
             xp[col] = x[col]
             for q in range(lo, hi):
-                dr[q] = (rp[q] - W.r[n, q]) / h
+                dr[q] = (rp[0, q] - W.r[n, q]) / h
             for i in range(NSP):
                 d = 0.0
                 for q in range(lo, hi):
@@ -545,7 +548,7 @@ def fac_sizes(nv, nn, nb, resolved):
 
 
 @_jit
-def factor(st, Jm, ff, fi):
+def factor(st, Jm, ff, fi, W):
     """Factor the cell Jacobian ``Jm`` into the flat arrays ``ff`` (floats), ``fi`` (ints)."""
     nv = Jm.shape[0]
     nn = st.nnode
@@ -575,7 +578,7 @@ def factor(st, Jm, ff, fi):
                 Gs[k, a, b] = Jm[b0 + a, b0 + b]
                 Ls[k, a, b] = Jm[b0 + a, b0 - nb + b] if k > 0 else 0.0
     # block Thomas: G_k = D_k - L_k M_k, M_k = G_(k-1)^-1 U_(k-1)
-    col = np.empty(nb)
+    col = W.col
     for k in range(nn):
         if k > 0:
             b0 = NG + (k - 1) * nb
@@ -594,11 +597,11 @@ def factor(st, Jm, ff, fi):
         if not _lu(Gs[k], pivG[k]):
             return False
     # W = T^-1 A_ng, S = A_gg - A_gn W
-    rhs = np.empty(nn * nb)
+    rhs = W.rhs
     for g in range(NG):
         for a in range(nn * nb):
             rhs[a] = Jm[NG + a, g]
-        _tri_solve(nn, nb, Gs, Ms, Ls, pivG, rhs)
+        _tri_solve(nn, nb, Gs, Ms, Ls, pivG, rhs, W.tmp)
         for a in range(nn * nb):
             Wm[a, g] = rhs[a]
     for g in range(NG):
@@ -614,9 +617,8 @@ def factor(st, Jm, ff, fi):
 
 
 @_jit
-def _tri_solve(nn, nb, Gs, Ms, Ls, pivG, y):
+def _tri_solve(nn, nb, Gs, Ms, Ls, pivG, y, tmp):
     """Solve T y = r in place (block Thomas factors)."""
-    tmp = np.empty(nb)
     for k in range(nn):
         o = k * nb
         if k > 0:
@@ -640,7 +642,7 @@ def _tri_solve(nn, nb, Gs, Ms, Ls, pivG, y):
 
 
 @_jit
-def apply(st, ff, fi, rhs, out):
+def apply(st, ff, fi, rhs, out, W):
     """out = J^-1 rhs with the factors of :func:`factor`."""
     nv = rhs.shape[0]
     nn = st.nnode
@@ -663,8 +665,8 @@ def apply(st, ff, fi, rhs, out):
     pivG = fi[0:nn * nb].reshape((nn, nb))
     pivS = fi[nn * nb:nn * nb + NG]
     y = out[NG:]
-    _tri_solve(nn, nb, Gs, Ms, Ls, pivG, y)
-    t = np.empty(NG)
+    _tri_solve(nn, nb, Gs, Ms, Ls, pivG, y, W.tmp)
+    t = W.tS
     for g in range(NG):
         s = rhs[g]
         for a in range(nn * nb):
@@ -746,8 +748,12 @@ def _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
     if st.ns == 0:
         return
     nn = st.nnode
-    lo = np.zeros((nn, st.ns))
-    hi = np.ones((nn, st.ns))
+    lo = W.lo
+    hi = W.hi
+    for n in range(nn):
+        for s in range(st.ns):
+            lo[n, s] = 0.0
+            hi[n, s] = 1.0
     for _ in range(14):
         for n in range(nn):
             for s in range(st.ns):
@@ -767,16 +773,14 @@ def _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
 
 
 @_jit
-def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi,
-               floor, W, out):
-    """Damped Newton on cell ``j`` in place on ``x`` (twin of
-    :func:`aftertreat.kernel_numpy.solve_cell`). ``ff``/``fi`` hold the chord factors (valid if
-    ``have_fac``) and receive any new ones. ``out`` = [residual, converged, jacobians,
-    residual evaluations, factors valid]."""
-    tol, tol_acc = cfg[0], cfg[1]
-    max_it, max_jac = int(cfg[2]), int(cfg[3])
+def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi, floor,
+            W, stat, tol, max_it, max_jac):
+    """Damped Newton on cell ``j`` in place on ``x`` until the residual is below ``tol``.
+    ``stat`` receives [residual, stalled at round-off, jacobians, evaluations, factors valid]
+    (the counts are added to)."""
+    fd, tau0, tau_b, max_dT = cfg[7], cfg[8], cfg[9], cfg[10]
     chord = cfg[4] > 0.0
-    c_acc, c_keep, fd, tau0, tau_b = cfg[5], cfg[6], cfg[7], cfg[8], cfg[9]
+    c_acc, c_keep = cfg[5], cfg[6]
     nv = x.shape[0]
     nb = st.nf + st.ns
     R = W.R
@@ -785,7 +789,6 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
     dx = W.dx
     Jm = W.J
     _project(x, bnd_lo, bnd_hi)                     # the start inside the bounds
-    scales(st, fl, W.sc)
     stalled = False
     residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R)
     rn = norm(R)
@@ -811,14 +814,14 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
                             c = NODE0 + n * nb + st.nf + s
                             Jm[c, c] -= 1.0 / tau
             njac += 1
-            if not factor(st, Jm, ff, fi):
+            if not factor(st, Jm, ff, fi, W):
                 have_fac = False
                 break
             have_fac = True
             fresh = True
         for i in range(nv):
             Rt[i] = -R[i]
-        apply(st, ff, fi, Rt, dx)
+        apply(st, ff, fi, Rt, dx, W)
         finite = True
         big = 0.0
         for i in range(nv):
@@ -836,7 +839,10 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
         if fresh and big < STEP_TOL and rn < STALL_TOL:
             stalled = True                         # at the round-off floor of its rows
             break
-        a = _step_bound(x, dx, bnd_lo, bnd_hi, floor, tau_b)
+        # a trust region on the temperatures, then the bounds of the other unknowns
+        dT = max(abs(dx[IT_G]), abs(dx[IT_S]))
+        aT = max_dT / dT if dT > max_dT else 1.0
+        a = min(aT, _step_bound(x, dx, bnd_lo, bnd_hi, floor, tau_b))
         if not fresh:                                  # chord step: one try
             _trial(x, dx, a, bnd_lo, bnd_hi, xt)
             residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
@@ -857,7 +863,17 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
         fresh = False
         ok = False
         rt = rn
-        for _ls in range(12):
+        if a < aT:
+            # the bound cut the step: first try the full step projected onto the bounds (the
+            # components it pushes past a bound stop there), which does not let one unknown
+            # creeping towards its bound stall all the others
+            _trial(x, dx, aT, bnd_lo, bnd_hi, xt)
+            residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
+            nres += 1
+            rt = norm(Rt)
+            if rt == rt and (rt < (1.0 - 1e-4 * a) * rn):
+                ok = True
+        for _ls in range(0 if ok else 12):
             _trial(x, dx, a, bnd_lo, bnd_hi, xt)
             residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
             nres += 1
@@ -878,19 +894,78 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
             rn = rt
             continue
         have_fac = False
-        if rn < tol_acc:
+        if rn < tol:
             break
         tau = tau0 if tau == 0.0 else tau * 0.1
         if tau < 1e-12:
             break
+    stat[0] = rn
+    stat[1] = 1.0 if stalled else 0.0
+    stat[2] += njac
+    stat[3] += nres
+    stat[4] = 1.0 if have_fac else 0.0
+
+
+@_jit
+def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi,
+               floor, W, out):
+    """Solve cell ``j`` in place on ``x`` (twin of :func:`aftertreat.kernel_numpy.solve_cell`):
+    damped Newton, and if it fails, continuation in the reaction rates from a nearly
+    unreacting cell. ``ff``/``fi`` hold the chord factors (valid if ``have_fac``) and receive
+    any new ones. ``out`` = [residual, converged, jacobians, residual evaluations, factors
+    valid]."""
+    tol, tol_acc = cfg[0], cfg[1]
+    max_it, max_jac = int(cfg[2]), int(cfg[3])
+    nv = x.shape[0]
+    st_ = W.stat
+    for k in range(5):
+        st_[k] = 0.0
+    scales(st, fl, W.sc)
+    x0 = W.x0
+    for i in range(nv):
+        x0[i] = x[i]
+    W.lam[0] = 1.0
+    _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi, floor,
+            W, st_, tol, max_it, max_jac)
+    ok = st_[0] < tol_acc or st_[1] > 0.0
+    if not ok and cfg[11] > 0.0:
+        # continuation: all rates x lam, lam from 1e-3 to 1 in growing steps (each Newton
+        # solve starts from the last converged one; a failed step is redone shorter)
+        xh = W.xh
+        for i in range(nv):
+            x[i] = x0[i]
+            xh[i] = x0[i]
+        lam_ok = 0.0
+        lam = 1e-3
+        grow = 10.0
+        for _k in range(60):
+            W.lam[0] = lam
+            _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, False, cfg, bnd_lo, bnd_hi,
+                    floor, W, st_, tol if lam == 1.0 else 1e3 * tol_acc, max_it, max_jac)
+            good = st_[0] < (tol_acc if lam == 1.0 else 1e3 * tol_acc) or st_[1] > 0.0
+            if good:
+                if lam == 1.0:
+                    break
+                lam_ok = lam
+                for i in range(nv):
+                    xh[i] = x[i]
+                grow = min(grow * 2.0, 10.0)
+            else:
+                for i in range(nv):
+                    x[i] = xh[i]
+                grow = math.sqrt(grow)
+                if grow < 1.02:
+                    break
+            lam = min(1.0, max(lam_ok, 1e-3) * grow) if lam_ok > 0.0 else lam / 4.0
+        W.lam[0] = 1.0
     # leave the rates and extents of the final state in W
-    residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R)
-    rn = norm(R)
+    residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
+    rn = norm(W.R)
     out[0] = rn
-    out[1] = 1.0 if (rn < tol_acc or stalled) else 0.0
-    out[2] = njac
-    out[3] = nres + 1
-    out[4] = 1.0 if have_fac else 0.0
+    out[1] = 1.0 if (rn < tol_acc or (st_[1] > 0.0 and rn < STALL_TOL)) else 0.0
+    out[2] = st_[2]
+    out[3] = st_[3] + 1
+    out[4] = st_[4]
 
 
 @_jit
@@ -900,19 +975,21 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
     [n, size] hold per-cell factors, valid where ``fac_ok``; they are updated in place."""
     n = st.n
     nv = X.shape[1]
-    lower = np.zeros(nv, dtype=np.bool_)
-    upper = np.zeros(nv, dtype=np.bool_)
-    floor = np.zeros(nv)
+    lower = W.lower
+    upper = W.upper
+    floor = W.floor
     _bounds(st, fl, lower, upper, floor)
-    Fin = fl.F_in.copy()
+    Fin = W.Fin
+    for i in range(NSP):
+        Fin[i] = fl.F_in[i]
     Tgin = fl.T_in
     nfl, nin = FF.shape[1], FI.shape[1]
-    ff = np.empty(nfl)
-    fi = np.empty(nin, dtype=np.int64)
+    ff = W.ff
+    fi = W.fi
     have = False
-    x = np.empty(nv)
-    cand = np.empty(nv)
-    out = np.zeros(5)
+    x = W.x
+    cand = W.cand
+    out = W.out
     for j in range(n):
         xo = x_old[j]
         best = 1e300
@@ -1001,11 +1078,33 @@ class Work(NamedTuple):
     rp: np.ndarray
     dr: np.ndarray
     J: np.ndarray
+    col: np.ndarray
+    rhs: np.ndarray
+    tmp: np.ndarray
+    tS: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    floor: np.ndarray
+    Fin: np.ndarray
+    ff: np.ndarray
+    fi: np.ndarray
+    x: np.ndarray
+    cand: np.ndarray
+    out: np.ndarray
+    x0: np.ndarray
+    xh: np.ndarray
+    stat: np.ndarray
+    lam: np.ndarray
 
 
 def make_work(st) -> Work:
     """Scratch arrays sized for the problem ``st`` (a :class:`~aftertreat.problem.KernelStatic`)."""
+    nb = max(st.nf + st.ns, 1)
+    ns = max(st.ns, 1)
     nv = NSP + 2 + st.nnode * (st.nf + st.ns)
+    nfl, nin = fac_sizes(nv, st.nnode, st.nf + st.ns, st.resolved)
     R = max(st.nrxn, 1)
     nf = max(st.nf, 1)
     vec = lambda: np.zeros(nv)            # noqa: E731
@@ -1014,4 +1113,10 @@ def make_work(st) -> Work:
                 r=np.zeros((st.nnode, R)), xi=np.zeros(R), cb=np.zeros(nf), Dg=np.ones(nf),
                 km=np.ones(nf), half=np.ones((st.nnode, nf)), G=np.ones((st.nnode, nf)),
                 R=vec(), Rt=vec(), R0=vec(), Rp=vec(), xt=vec(), dx=vec(), xp=vec(), sc=vec(),
-                rp=np.zeros(R), dr=np.zeros(R), J=np.zeros((nv, nv)))
+                rp=np.zeros((1, R)), dr=np.zeros(R), J=np.zeros((nv, nv)),
+                col=np.zeros(nb), rhs=np.zeros(max(st.nnode * nb, 1)), tmp=np.zeros(nb),
+                tS=np.zeros(NG), lo=np.zeros((st.nnode, ns)), hi=np.ones((st.nnode, ns)),
+                lower=np.zeros(nv, dtype=np.bool_), upper=np.zeros(nv, dtype=np.bool_),
+                floor=np.zeros(nv), Fin=np.zeros(NSP), ff=np.zeros(nfl),
+                fi=np.zeros(nin, dtype=np.int64), x=vec(), cand=vec(), out=np.zeros(5),
+                x0=vec(), xh=vec(), stat=np.zeros(5), lam=np.ones(1))

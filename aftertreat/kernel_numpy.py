@@ -39,7 +39,7 @@ __all__ = ["cell_mean", "cell_residual", "cell_jacobian", "factor", "apply", "so
 #: weight of the temperature rows [K] in the residual norm: they balance heat flows to about
 #: 1e-12 K of round-off, so they are held to 1e-3 of the tolerance of the scaled rows
 NORM_T_WEIGHT = 1e-3
-_FLOOR = 1e-3
+_FLOOR = 1e-12
 _T_MIN, _T_MAX = 200.0, 2000.0
 #: a fresh Newton step smaller than this relative to the unknowns: the cell is at the round-off
 #: floor of its residual (rows whose terms cancel, e.g. a reversible reaction near equilibrium);
@@ -51,9 +51,10 @@ STALL_TOL = 1e-7
 def cell_mean(c_in, c_out):
     """Mean concentration over a cell: log mean where it falls, arithmetic mean where it rises.
 
-    Below c_out = 1e-3 c_in the log mean is continued linearly with its slope there, so the
-    function stays smooth and strictly increasing (a cell in which a species falls more than
-    1000-fold is far from resolved; there the mean is overestimated by up to ~15 %).
+    Below c_out = 1e-12 c_in (a fall beyond e^27 in one cell) the log mean is continued by the
+    power law lm_f (c_out/c_f)^s that meets it with its slope at the floor c_f and reaches zero
+    with c_out: the mean stays smooth, increasing and positive, and a cell can never take up
+    more than its inflow, so its balance always has a root with c_out >= 0.
     """
     c_in = np.asarray(c_in, dtype=float)
     c_out = np.asarray(c_out, dtype=float)
@@ -63,8 +64,9 @@ def cell_mean(c_in, c_out):
     lnr = np.log(a / b)
     with np.errstate(divide="ignore", invalid="ignore"):
         lm = np.where(np.abs(a - b) <= 1e-6 * (a + b), 0.5 * (a + b), (a - b) / lnr)
-        slope = np.where(lnr > 1e-6, (a / b - 1.0 - lnr) / lnr ** 2, 0.5)
-    lm = lm + slope * np.minimum(np.where(falling, c_out, 1.0) - b, 0.0)
+        s = np.where(lnr > 1e-6, (a / b - 1.0 - lnr) / lnr ** 2 * b / lm, 1.0)
+        below = falling & (c_out < b)
+        lm = np.where(below, lm * (np.maximum(c_out, 0.0) / b) ** s, lm)
     return np.where(falling, lm, 0.5 * (c_in + c_out))
 
 
@@ -123,16 +125,17 @@ def d_eff(st: KernelStatic, layer, D_mol, T):
 # ---------------------------------------------------------------------------------------------
 # rates
 # ---------------------------------------------------------------------------------------------
-def rates(st: KernelStatic, fl: KernelFlow, c, th, Ts):
+def rates(st: KernelStatic, fl: KernelFlow, c, th, Ts, lam: float = 1.0):
     """Rates of every reaction at every node [..., nnode, R] (zero for reactions of other
     layers), with the activity and, for the effectiveness model, eta = tanh(phi)/phi.
 
-    ``c`` [..., nnode, nf], ``th`` [..., nnode, ns], ``Ts`` [...] (solid temperature).
+    ``c`` [..., nnode, nf], ``th`` [..., nnode, ns], ``Ts`` [...] (solid temperature);
+    ``lam`` multiplies every rate (the continuation of :func:`solve_cell`).
     """
     Ts = np.asarray(Ts, dtype=float)
     T = Ts[..., None, None]                                            # [..., 1, 1]
     k = st.k_ref * np.exp(-st.E_R * (1.0 / T - st.inv_Tref))          # [..., 1, R]
-    k = k * np.where(st.ages > 0, st.activity, 1.0)
+    k = k * np.where(st.ages > 0, st.activity, 1.0) * lam
     thc = np.clip(th, 0.0, 1.0)
     r = np.broadcast_to(k, c.shape[:-1] + (st.nrxn,)).copy()
     # concentration products (whole orders as they are, fractional ones clipped at zero)
@@ -191,7 +194,7 @@ def rates(st: KernelStatic, fl: KernelFlow, c, th, Ts):
 # the residual of one cell (vectorised over a batch of states of that cell)
 # ---------------------------------------------------------------------------------------------
 def cell_residual(st: KernelStatic, fl: KernelFlow, j: int, x, F_in, Tg_in, x_old, inv_dt,
-                  want_xi: bool = False):
+                  want_xi: bool = False, lam: float = 1.0):
     """Scaled residual of cell ``j`` [..., nv] at states ``x`` [..., nv] with the inflow
     ``F_in`` [nsp] (mol/s), ``Tg_in`` [K]; ``x_old`` [nv] and ``inv_dt`` [1/s] make it an
     implicit-Euler step (``inv_dt = 0``: steady). With ``want_xi`` also the extents [..., R]."""
@@ -210,7 +213,7 @@ def cell_residual(st: KernelStatic, fl: KernelFlow, j: int, x, F_in, Tg_in, x_ol
     c_in = F_in[st.film_idx] * (p / (R_GAS * Tg_in) / F_in.sum())
     cb = cell_mean(c_in, c_out)                                          # [..., nf]
     _, k_g, D_g = props(fl, Tg)
-    r = rates(st, fl, cn, th, Ts)                                        # [..., nn, R]
+    r = rates(st, fl, cn, th, Ts, lam)                                   # [..., nn, R]
     xi = st.vol[j] * np.einsum("n,...nq->...q", st.node_frac, r)
     nu = st.nu_gas if inv_dt > 0 else st.nu_equiv
     dF = xi @ nu
@@ -279,7 +282,7 @@ def scales(st: KernelStatic, fl: KernelFlow):
     return s
 
 
-def cell_jacobian(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, R0, fd_step):
+def cell_jacobian(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, R0, fd_step, lam=1.0):
     """dR/dx of cell ``j`` [nv, nv] by forward differences of every column (all perturbed
     copies in one vectorised residual call). Coverages are stepped away from theta = 1."""
     nv = x.size
@@ -289,7 +292,7 @@ def cell_jacobian(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, R0, fd_step):
         th = x[b:b + st.ns]
         h[b:b + st.ns] = np.where(th > 0.5, -h[b:b + st.ns], h[b:b + st.ns])
     X = x[None, :] + np.diag(h)
-    Rp = cell_residual(st, fl, j, X, F_in, Tg_in, x_old, inv_dt)
+    Rp = cell_residual(st, fl, j, X, F_in, Tg_in, x_old, inv_dt, lam=lam)
     return ((Rp - R0[None, :]) / h[:, None]).T
 
 
@@ -348,7 +351,7 @@ def project(x, lower, upper):
 # ---------------------------------------------------------------------------------------------
 #: settings vector read by both kernels (see :class:`aftertreat.solver.SolverSettings`)
 SETTINGS = ("tol", "tol_accept", "max_iter", "max_jac", "chord", "chord_accept", "chord_keep",
-            "fd_step", "tau0", "tau_b")
+            "fd_step", "tau0", "tau_b", "max_step_T_K", "continuation")
 
 
 def _balance_coverage(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, lower, upper, steps=14):
@@ -372,19 +375,20 @@ def _balance_coverage(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, lower, upper, st
     return x
 
 
-def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
-    """Damped Newton on the balances of cell ``j`` with its inflow fixed.
+def _newton(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds, tol, lam):
+    """Damped Newton on cell ``j`` (inflow fixed) until the scaled residual is below ``tol``.
 
     ``fac`` (factors of a neighbouring Jacobian, or None) serves chord steps while they cut the
-    residual by ``chord_accept``; a fresh Jacobian is formed otherwise, and a Newton step is
-    backtracked until the residual falls. Steps keep every bounded unknown inside its bounds
-    (fraction to the boundary ``tau_b``, :func:`step_bound`). If Newton stalls, pseudo-time
-    steps on the coverage and solid-temperature rows take over (switched evolution relaxation:
-    the pseudo-time step grows as the residual falls) and hand back to Newton.
+    residual by ``chord_accept``; a fresh Jacobian is formed otherwise. A Newton step is first
+    held to a trust region of ``max_step_T_K`` on the temperatures and to the bounds of the
+    other unknowns (fraction to the boundary ``tau_b``, :func:`step_bound`); if the bounds cut
+    it, the whole step projected onto the bounds is tried first; then it is backtracked until
+    the residual falls. If Newton stalls, pseudo-time steps on the coverage and solid-
+    temperature rows take over (switched evolution relaxation) and hand back to Newton.
 
-    Returns (x, residual norm, converged, factors, jacobians formed, residual evaluations).
+    Returns (x, residual norm, stalled at round-off, factors, jacobians, evaluations).
     """
-    tol, tol_acc, max_it, max_jac, chord, c_acc, c_keep, fd, tau0, tau_b = cfg
+    tol_acc, max_it, max_jac, chord, c_acc, c_keep, fd, tau0, tau_b, max_dT = cfg[1:11]
     lower, upper, floor = bnds
     nv = x0.size
     mask = np.zeros(nv)
@@ -395,7 +399,11 @@ def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
     x = project(x0.copy(), lower, upper)
     sc = scales(st, fl)
     stalled = False
-    R = cell_residual(st, fl, j, x, F_in, Tg_in, x_old, inv_dt)
+
+    def res(v):
+        return cell_residual(st, fl, j, v, F_in, Tg_in, x_old, inv_dt, lam=lam)
+
+    R = res(x)
     rn = norm(R)
     nres, njac = 1, 0
     fresh = False
@@ -408,7 +416,7 @@ def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
         if fac is None:
             if njac >= max_jac:
                 break
-            J = cell_jacobian(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, R, fd)
+            J = cell_jacobian(st, fl, j, x, F_in, Tg_in, x_old, inv_dt, R, fd, lam=lam)
             nres += nv
             if tau > 0:
                 J = J - np.diag(mask / tau)
@@ -428,10 +436,12 @@ def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
         if fresh and np.max(np.abs(dx) / (np.abs(x) + sc)) < STEP_TOL and rn < STALL_TOL:
             stalled = True                      # at the round-off floor of its rows
             break
-        a = step_bound(x, dx, lower, upper, floor, tau_b)
+        dT = max(abs(dx[NSP]), abs(dx[NSP + 1]))
+        aT = max_dT / dT if dT > max_dT else 1.0
+        a = min(aT, step_bound(x, dx, lower, upper, floor, tau_b))
         if not fresh:                                  # chord step: one try
             xt = project(x + a * dx, lower, upper)
-            Rt = cell_residual(st, fl, j, xt, F_in, Tg_in, x_old, inv_dt)
+            Rt = res(xt)
             nres += 1
             rt = norm(Rt)
             if np.isfinite(rt) and rt <= c_acc * rn:
@@ -445,9 +455,18 @@ def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
             continue
         fresh = False
         ok = False
-        for _ls in range(12):
+        if a < aT:
+            # the bound cut the step: first try the full step projected onto the bounds (the
+            # components it pushes past a bound stop there), which does not let one unknown
+            # creeping towards its bound stall all the others
+            xt = project(x + aT * dx, lower, upper)
+            Rt = res(xt)
+            nres += 1
+            rt = norm(Rt)
+            ok = bool(np.isfinite(rt) and rt < (1.0 - 1e-4 * a) * rn)
+        for _ls in range(0 if ok else 12):
             xt = project(x + a * dx, lower, upper)
-            Rt = cell_residual(st, fl, j, xt, F_in, Tg_in, x_old, inv_dt)
+            Rt = res(xt)
             nres += 1
             rt = norm(Rt)
             if np.isfinite(rt) and (rt < (1.0 - 1e-4 * a) * rn or tau > 0):
@@ -463,12 +482,52 @@ def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
             x, R, rn = xt, Rt, rt
             continue
         fac = None
-        if rn < tol_acc:
+        if rn < tol:
             break
         tau = tau0 if tau == 0 else tau * 0.1
         if tau < 1e-12:
             break
-    return x, rn, bool(rn < tol_acc or stalled), fac, njac, nres
+    return x, rn, stalled, fac, njac, nres
+
+
+def solve_cell(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac, cfg, bnds):
+    """Solve the balances of cell ``j`` with its inflow fixed: damped Newton (:func:`_newton`)
+    and, if it fails, natural continuation in the reaction rates (every rate times lambda,
+    lambda from 1e-3 to 1 in growing steps; a failed step is redone shorter; e.g. Allgower &
+    Georg 2003, *Introduction to Numerical Continuation Methods*, ch. 1), which follows the
+    solution from a nearly unreacting cell to the real one.
+
+    Returns (x, residual norm, converged, factors, jacobians formed, residual evaluations).
+    """
+    tol, tol_acc = cfg[0], cfg[1]
+    x, rn, stalled, fac, njac, nres = _newton(st, fl, j, x0, F_in, Tg_in, x_old, inv_dt, fac,
+                                              cfg, bnds, tol, 1.0)
+    ok = rn < tol_acc or stalled
+    if not ok and cfg[11] > 0:
+        xh = x0.copy()
+        lam_ok, lam, grow = 0.0, 1e-3, 10.0
+        x = x0.copy()
+        for _k in range(60):
+            last = lam == 1.0
+            x, rn, stalled, fac, nj, nr = _newton(st, fl, j, x, F_in, Tg_in, x_old, inv_dt,
+                                                  None, cfg, bnds,
+                                                  tol if last else 1e3 * tol_acc, lam)
+            njac += nj
+            nres += nr
+            if rn < (tol_acc if last else 1e3 * tol_acc) or stalled:
+                if last:
+                    break
+                lam_ok, xh = lam, x.copy()
+                grow = min(grow * 2.0, 10.0)
+            else:
+                x = xh.copy()
+                grow = np.sqrt(grow)
+                if grow < 1.02:
+                    break
+            lam = min(1.0, max(lam_ok, 1e-3) * grow) if lam_ok > 0 else lam / 4.0
+    rn = norm(cell_residual(st, fl, j, x, F_in, Tg_in, x_old, inv_dt))
+    nres += 1
+    return x, rn, bool(rn < tol_acc or (stalled and rn < STALL_TOL)), fac, njac, nres
 
 
 def march(st: KernelStatic, fl: KernelFlow, X, guess, x_old, inv_dt, factors, cfg):

@@ -9,13 +9,22 @@ wander onto the unphysical roots that negative concentrations would give the rat
 
 Brick-level strategy (:func:`solve`):
 
-1. march from the warm start if there is one (each cell starts from the better of its guess
-   and its upstream neighbour; the stored Jacobian factors serve as chords);
+1. march from the inlet (each cell starts from its converged upstream neighbour; a warm
+   start's stored Jacobian factors serve as chords);
 2. accept only a march whose every cell converged and whose element and energy balances close
    (:func:`balances`); otherwise march again cold;
 3. then pseudo-transient continuation on the whole brick: implicit-Euler steps in physical time
    from the best state, the step growing tenfold from ``ptc_dt0_s``, then a steady march;
 4. a brick that still fails is returned with its best state and ``converged = False``.
+
+Branches. The balances of a cell can have more than one solution: a slip or oxidation catalyst
+fed thousands of ppm of NH3 can burn it at the very inlet (ignited) or only further down the
+brick (not yet lit), both steady states of the discrete model, as light-off hysteresis is of a
+real monolith. A steady solve reports the branch reached by starting every cell from its
+converged upstream neighbour, and cell 0 from the inlet state: the branch of a brick warmed up
+from cold (light-off from below). It does not depend on a warm start, so a mode gives the same
+answer whichever mode was solved before it; a warm start lends its Jacobian factors only.
+A transient run follows the branch its own history selects.
 
 Kernel choice (:data:`KERNELS`): ``"numba"`` (compiled; the default through ``"auto"`` when
 numba imports), ``"numpy"`` (the reference). ``"auto"`` falls back to numpy with one warning
@@ -30,9 +39,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import thermo
 from .problem import NSP, BoundProblem, StateLayout
 from .species import ELEMENT_MATRIX, INDEX
+from .units import R_GAS
 
 __all__ = ["SolverSettings", "WarmStart", "SolveOutcome", "KERNELS", "KernelWarning",
            "set_default_kernel", "default_kernel", "get_kernel", "solve", "step", "balances"]
@@ -55,8 +64,18 @@ class SolverSettings:
     most ``max_iter`` iterations and ``max_jacobians`` Jacobians. ``jacobian_reuse``: chord
     steps with an older Jacobian (a neighbouring cell's, or a warm start's) while each cuts the
     residual below ``chord_accept`` of the last, kept while below ``chord_keep``.
+    The energy balance is accepted within ``energy_tol_K`` plus ``energy_rtol`` of the heat the
+    reactions released (in kelvin of the gas: the model's own approximations, c_p at the inlet
+    composition and reaction heats at the solid temperature, leave ~1e-3 of it; measured).
     ``step_fraction``: a Newton step may take a bounded unknown at most this fraction of the
-    way to its bound. ``continuation``: pseudo-transient continuation when the marches fail. ``balance_tol``: largest element-balance error accepted [-];
+    way to its bound, and the temperatures move by at most ``max_step_T_K`` per step.
+    ``warm_states``: a steady solve starts each cell from a warm start's state for that cell
+    (else from its converged upstream neighbour, and the warm start lends only its Jacobian
+    factors); off by default, so that a steady answer does not depend on what was solved
+    before it (module docstring, "Branches").
+    ``rate_continuation``: a cell that Newton cannot solve is followed from nearly unreacting
+    (all rates x 1e-3) to its real rates. ``continuation``: pseudo-transient continuation of
+    the whole brick when the marches fail. ``balance_tol``: largest element-balance error accepted [-];
     ``energy_tol_K``: largest energy-balance error accepted, in kelvin of the gas stream.
     """
     tol: float = 1e-12
@@ -69,17 +88,22 @@ class SolverSettings:
     fd_step: float = 1e-7
     tau0: float = 1e-2
     step_fraction: float = 0.99
+    max_step_T_K: float = 50.0
+    rate_continuation: bool = True
     balance_tol: float = 1e-9
     energy_tol_K: float = 0.05
+    energy_rtol: float = 5e-3
     ptc_dt0_s: float = 0.01
     continuation: bool = True
+    warm_states: bool = False
     kernel: str | None = None
 
     def vector(self) -> np.ndarray:
         """The settings vector the kernels read (order of :data:`kernel_numpy.SETTINGS`)."""
         return np.array([self.tol, self.tol_accept, self.max_iter, self.max_jacobians,
                          1.0 if self.jacobian_reuse else 0.0, self.chord_accept,
-                         self.chord_keep, self.fd_step, self.tau0, self.step_fraction])
+                         self.chord_keep, self.fd_step, self.tau0, self.step_fraction,
+                         self.max_step_T_K, 1.0 if self.rate_continuation else 0.0])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -255,9 +279,20 @@ class SolveOutcome:
     attempts: list[str] = field(default_factory=list)
 
 
+def _h_species(st, T: float) -> np.ndarray:
+    """Molar enthalpy of every species at T [J/mol] (NASA-7, as :func:`aftertreat.thermo.h_molar`,
+    from the problem's coefficient arrays)."""
+    a = np.where((T < st.nasa_Tmid)[:, None], st.nasa_low, st.nasa_high)
+    return R_GAS * (T * (a[:, 0] + T * (a[:, 1] / 2 + T * (a[:, 2] / 3 + T * (a[:, 3] / 4
+                                                                          + T * a[:, 4] / 5))))
+                    + a[:, 5])
+
+
 def balances(bound: BoundProblem, x: np.ndarray, *, x_old: np.ndarray | None = None,
-             dt: float | None = None) -> tuple[float, float]:
-    """(element balance error [-], energy balance error [K]) of a brick state.
+             dt: float | None = None, extents: np.ndarray | None = None) -> tuple:
+    """(element balance error [-], energy balance error [K], heat released [K]) of a brick
+    state; the heat the reactions released (with ``extents`` [n, R], else 0) is also given in
+    kelvin of the outlet gas, as the scale of the energy error.
 
     Elements: max over N, H, O of |atoms out + atoms stored per second - atoms in| / max atoms
     in, stored NH3 counted in a time step (``x_old``, ``dt``). Energy, by the exact enthalpy
@@ -281,22 +316,26 @@ def balances(bound: BoundProblem, x: np.ndarray, *, x_old: np.ndarray | None = N
     a_in = ELEMENT_MATRIX @ inl.F
     a_out = ELEMENT_MATRIX @ F_out + ELEMENT_MATRIX[:, _NH3] * stored_rate
     el = float(np.max(np.abs(a_out - a_in)) / np.max(a_in))
-    h_in = float(thermo.h_molar(inl.T) @ inl.F)
-    h_out = float(thermo.h_molar(T_out) @ F_out)
-    h_nh3 = float(thermo.h_molar(float(np.mean(Ts)))[_NH3]) * stored_rate
+    h_in = float(_h_species(st, inl.T) @ inl.F)
+    h_out = float(_h_species(st, T_out) @ F_out)
+    h_nh3 = float(_h_species(st, float(np.mean(Ts)))[_NH3]) * stored_rate if stored_rate else 0.0
     loss = float(np.sum(st.loss_UA * (Ts - st.T_amb)))
     err_W = h_in - h_out - h_nh3 - loss - heat_store
     Fcp = float(F_out.sum() * bound.gas.cp_molar(T_out))
-    return el, abs(err_W) / Fcp
+    released = 0.0
+    if extents is not None and st.nrxn:
+        i = np.clip((Ts - st.T_tab0).astype(int), 0, st.dH_tab.shape[0] - 1)
+        released = float(np.abs(np.sum(extents * st.dH_tab[i])))
+    return el, abs(err_W) / Fcp, released / Fcp
 
 
-def _accept(bound, x, conv, st: SolverSettings, x_old=None, dt=None):
+def _accept(bound, x, conv, XI, st: SolverSettings, x_old=None, dt=None):
     if not np.all(conv):
         return False, np.nan, np.nan
     if np.any(bound.layout.flows(x) < 0) or not np.all(np.isfinite(x)):
         return False, np.nan, np.nan
-    el, en = balances(bound, x, x_old=x_old, dt=dt)
-    return (el <= st.balance_tol and en <= st.energy_tol_K), el, en
+    el, en, heat = balances(bound, x, x_old=x_old, dt=dt, extents=XI)
+    return (el <= st.balance_tol and en <= st.energy_tol_K + st.energy_rtol * heat), el, en
 
 
 def _run(kernel, bound, X0, guess, x_old, inv_dt, factors, cfg):
@@ -324,6 +363,8 @@ def solve(bound: BoundProblem, guess: WarmStart | None = None,
         else:
             w = guess.onto(bound.layout, bound.problem.z_edges)
             g = w.x if w is not None else None
+        if not st.warm_states:
+            g = None
     jac = evals = 0
     best = None
     tries = ([("warm", g, fac)] if g is not None or fac is not None else []) + [("cold", None,
@@ -333,7 +374,7 @@ def solve(bound: BoundProblem, guess: WarmStart | None = None,
         X, conv, res, nj, nr, XI = _run(kernel, bound, X0, gx, None, 0.0, factors, cfg)
         jac += nj
         evals += nr
-        ok, el, en = _accept(bound, X, conv, st)
+        ok, el, en = _accept(bound, X, conv, XI, st)
         attempts.append(f"{label}: {int(conv.sum())}/{n} cells converged, residual "
                         f"{float(np.max(res)):.1e}" + ("" if ok else ", rejected"))
         cand = (ok, float(np.max(res)), X, conv, XI, factors, el, en)
@@ -357,14 +398,14 @@ def solve(bound: BoundProblem, guess: WarmStart | None = None,
         X, conv, res, nj, nr, XI = _run(kernel, bound, X0, x, None, 0.0, factors, cfg)
         jac += nj
         evals += nr
-        ok, el, en = _accept(bound, X, conv, st)
+        ok, el, en = _accept(bound, X, conv, XI, st)
         attempts.append(f"continuation: {int(conv.sum())}/{n} cells converged, residual "
                         f"{float(np.max(res)):.1e}" + ("" if ok else ", rejected"))
         if ok or float(np.max(res)) < best[1]:
             best = (ok, float(np.max(res)), X, conv, XI, factors, el, en)
     ok, resid, X, conv, XI, factors, el, en = best
     if not np.isfinite(el):
-        el, en = balances(bound, X)
+        el, en, _ = balances(bound, X)
     return SolveOutcome(x=X, extents=XI, converged=bool(ok), residual=resid, cell_converged=conv,
                         jacobians=jac, evaluations=evals, element_balance_error=el,
                         energy_balance_K=en, factors=factors, kernel=kernel.name,
@@ -383,7 +424,7 @@ def step(bound: BoundProblem, x_old: np.ndarray, dt: float, *, guess: np.ndarray
         factors = kernel.new_factors(bound)
     g = x_old if guess is None else guess
     X, conv, res, nj, nr, XI = _run(kernel, bound, x_old, g, x_old, 1.0 / dt, factors, cfg)
-    ok, el, en = _accept(bound, X, conv, st, x_old, dt)
+    ok, el, en = _accept(bound, X, conv, XI, st, x_old, dt)
     attempts = ["step" + ("" if ok else ", rejected")]
     if not ok:
         factors = kernel.new_factors(bound)
@@ -391,12 +432,12 @@ def step(bound: BoundProblem, x_old: np.ndarray, dt: float, *, guess: np.ndarray
                                               factors, cfg)
         nj += nj2
         nr += nr2
-        ok2, el2, en2 = _accept(bound, X2, conv2, st, x_old, dt)
+        ok2, el2, en2 = _accept(bound, X2, conv2, XI2, st, x_old, dt)
         attempts.append("step from the old state" + ("" if ok2 else ", rejected"))
         if ok2 or float(np.max(res2)) < float(np.max(res)):
             X, conv, res, XI, ok, el, en = X2, conv2, res2, XI2, ok2, el2, en2
     if not np.isfinite(el):
-        el, en = balances(bound, X, x_old=x_old, dt=dt)
+        el, en, _ = balances(bound, X, x_old=x_old, dt=dt)
     return SolveOutcome(x=X, extents=XI, converged=bool(ok), residual=float(np.max(res)),
                         cell_converged=conv, jacobians=nj, evaluations=nr,
                         element_balance_error=el, energy_balance_K=en, factors=factors,

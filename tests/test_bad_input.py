@@ -172,7 +172,7 @@ def test_non_convergence_is_reported_not_raised(deadline):
     b = at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7),
                  at.load_catalyst("vanadia_extruded"), length=0.6, diameter=0.8)
     with deadline(30):
-        crude = at.SolverSettings(max_iter=1, continuation=False)
+        crude = at.SolverSettings(max_iter=1, continuation=False, rate_continuation=False)
         sol = at.solve_brick(b, s, settings=crude)
         train = at.Train([b]).solve(s, settings=crude)
     assert sol.converged is False
