@@ -49,7 +49,7 @@ _EXHAUST = {"mass_flow", "mass_flow_kg_s", "molar_flow", "molar_flow_mol_s", "T"
             "p_kPa", "basis"} | {f"{s}_ppm" for s in SPECIES} | {f"{s}_pct" for s in SPECIES}
 _BRICK = {"name", "catalyst", "substrate", "cpsi", "wall", "wall_mm", "wall_mil", "washcoat_um",
           "gap", "gap_mm", "plate", "plate_mm", "length", "length_mm", "diameter", "diameter_mm",
-          "activity", "cells", "nodes_per_layer", "washcoat_model", "sherwood",
+          "activity", "cells", "grid", "nodes_per_layer", "washcoat_model", "sherwood",
           "heat_loss_W_m2K", "heat_capacity_kJ_m3K"}
 
 
@@ -223,6 +223,12 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
                     raise InputError("expected a whole number >= 1", key=pre + key, value=v,
                                      file=file)
                 kw[key] = v
+        if "grid" in b:
+            from .brick import GRIDS
+            if b["grid"] not in GRIDS:
+                raise InputError(f"expected one of {', '.join(GRIDS)}" + did_you_mean(b["grid"], GRIDS),
+                                 key=pre + "grid", value=b["grid"], file=file)
+            kw["grid"] = b["grid"]
         if "sherwood" in b:
             from .transport import sherwood_methods
             if b["sherwood"] not in sherwood_methods():

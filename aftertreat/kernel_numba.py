@@ -1013,6 +1013,25 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
                 best = r
                 for i in range(nv):
                     x[i] = X[j - 1, i]
+        if j > 1:
+            # the two upstream cells extrapolated (geometrically where both are positive: the
+            # profiles are close to exponential), projected into the bounds
+            w = (st.dz[j - 1] + st.dz[j]) / (st.dz[j - 2] + st.dz[j - 1])
+            for i in range(nv):
+                a1 = X[j - 1, i]
+                a2 = X[j - 2, i]
+                if lower[i] and a1 > 0.0 and a2 > 0.0:
+                    cand[i] = a1 * (a1 / a2) ** w
+                else:
+                    cand[i] = a1 + (a1 - a2) * w
+            _project(cand, lower, upper)
+            residual(st, fl, j, cand, Fin, Tgin, xo, inv_dt, W, W.R)
+            cnt += 1
+            r = norm(W.R)
+            if r == r and r < best:
+                best = r
+                for i in range(nv):
+                    x[i] = cand[i]
         if best == 1e300:
             for i in range(nv):
                 x[i] = X[j, i]                     # the raw inlet state

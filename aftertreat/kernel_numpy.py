@@ -557,19 +557,29 @@ def march(st: KernelStatic, fl: KernelFlow, X, guess, x_old, inv_dt, factors, cf
         xo = x_old[j] if x_old is not None else zero
         cands = []
         if guess is not None:
-            cands.append(guess[j])
+            cands.append(project(guess[j].copy(), bnds[0], bnds[1]))
         if j > 0:
             cands.append(X[j - 1])
-        if not cands:
-            x0 = X[0].copy()                            # the raw inlet state
-            _balance_coverage(st, fl, 0, x0, F_in, Tg_in, xo, inv_dt, *bnds[:2])
-            cands.append(x0)
+        if j > 1:
+            # the two upstream cells extrapolated (geometrically where both are positive: the
+            # profiles are close to exponential), projected into the bounds
+            w = (st.dz[j - 1] + st.dz[j]) / (st.dz[j - 2] + st.dz[j - 1])
+            a1, a2 = X[j - 1], X[j - 2]
+            geo = bnds[0] & (a1 > 0) & (a2 > 0)
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                ex = np.where(geo, a1 * (a1 / np.where(geo, a2, 1.0)) ** w, a1 + (a1 - a2) * w)
+            cands.append(project(ex, bnds[0], bnds[1]))
         best = None
         for c in cands:
             rc = norm(cell_residual(st, fl, j, c, F_in, Tg_in, xo, inv_dt))
             nres[j] += 1
-            if best is None or rc < best[1]:
+            if np.isfinite(rc) and (best is None or rc < best[1]):
                 best = (c, rc)
+        if best is None:
+            x0 = X[j].copy()                            # the raw inlet state
+            _balance_coverage(st, fl, j, x0, F_in, Tg_in, xo, inv_dt, *bnds[:2])
+            nres[j] += 14
+            best = (x0, 0.0)
         f0 = factors[j] if factors is not None and factors[j] is not None else fac
         x, rn, ok, fac, nj, nr = solve_cell(st, fl, j, best[0], F_in, Tg_in, xo, inv_dt, f0,
                                             cfg, bnds)

@@ -78,8 +78,8 @@ class SolverSettings:
     the whole brick when the marches fail. ``balance_tol``: largest element-balance error accepted [-];
     ``energy_tol_K``: largest energy-balance error accepted, in kelvin of the gas stream.
     """
-    tol: float = 1e-12
-    tol_accept: float = 1e-10
+    tol: float = 1e-10
+    tol_accept: float = 1e-9
     max_iter: int = 60
     max_jacobians: int = 25
     jacobian_reuse: bool = True

@@ -13,6 +13,7 @@ import numpy as np
 
 from .brick import Brick
 from .errors import InputError
+from .problem import signature
 from .reactor import BrickSolution, SolverSettings, solve_brick
 from .species import ELEMENT_MATRIX, INDEX, NOX, SPECIES
 from .stream import Stream
@@ -78,16 +79,9 @@ def ghsv_per_h(stream: Stream, volume: float, T_normal: float = T_NORMAL_K,
 
 
 def _same_brick(a: Brick, b: Brick) -> bool:
-    """True when two bricks define the same steady problem (same catalyst objects)."""
-    if a is b:
-        return True
-    return (len(a.catalysts) == len(b.catalysts)
-            and all(x is y for x, y in zip(a.catalysts, b.catalysts))
-            and (a.substrate, a.length, a.diameter, a.activity, a.washcoat, a.nodes_per_layer,
-                 a.cells, a.sherwood, a.film, a.apparent_friction, a.heat_loss_W_m2K,
-                 a.T_ambient) ==
-            (b.substrate, b.length, b.diameter, b.activity, b.washcoat, b.nodes_per_layer,
-             b.cells, b.sherwood, b.film, b.apparent_friction, b.heat_loss_W_m2K, b.T_ambient))
+    """True when two bricks define the same steady problem (same catalyst objects, geometry,
+    grid and settings: :func:`aftertreat.problem.signature`)."""
+    return a is b or signature(a) == signature(b)
 
 
 def _same_stream(a: Stream, b: Stream) -> bool:
