@@ -33,7 +33,7 @@ IT_S = NSP + 1
 NODE0 = NSP + 2
 NG = NSP + 2
 T_WEIGHT = 1e-3
-_FLOOR = 1e-12
+_FLOOR = 1e-6
 _TMIN, _TMAX = 200.0, 2000.0
 
 #: a Newton step (fresh Jacobian) smaller than this, relative to the unknowns, means the cell
@@ -41,6 +41,8 @@ _TMIN, _TMAX = 200.0, 2000.0
 #: near equilibrium) cannot be resolved further; accepted if the residual is below STALL_TOL
 STEP_TOL = 1e-10
 STALL_TOL = 1e-7
+#: solid-temperature steps of the hot starts of a cell that ignites [K]
+HOT_STEP_K = 50.0
 
 # No reference counting inside the kernel: every array is allocated in Python (``Work``), so
 # the runtime's per-call reference counts of the many arrays in the problem tuples (measured:
@@ -65,9 +67,10 @@ def cell_mean(c_in, c_out):
         lm = (a - b) / lnr
     if c_out >= b:
         return lm
-    # below the floor: lm (c_out/b)^s, the power law that meets the log mean with its slope
+    # below the floor: the quadratic through zero that meets the log mean with its slope
     s = (a / b - 1.0 - lnr) / (lnr * lnr) * b / lm
-    return lm * (max(c_out, 0.0) / b) ** s
+    t = c_out / b
+    return lm * ((2.0 - s) * t + (s - 1.0) * t * t)
 
 
 @_jit
@@ -397,14 +400,27 @@ def jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm):
         for b in range(nv):
             Jm[a, b] = 0.0
     # gas columns: flows and gas temperature, with the rates held (they depend on neither)
+    # (central differences where the step stays inside the bounds: the log mean of a flow near
+    # zero is curved on the scale of the flow itself)
     for col in range(NSP + 1):
         h = fd * max(abs(x[col]), sc[col])
         xp[col] = x[col] + h
-        h = xp[col] - x[col]
-        _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
+        if x[col] - h >= 0.0:
+            up = xp[col]
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
+            for a in range(nv):
+                Jm[a, col] = Rp[a]
+            xp[col] = x[col] - h
+            h = up - xp[col]
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
+            for a in range(nv):
+                Jm[a, col] = (Jm[a, col] - Rp[a]) / h
+        else:
+            h = xp[col] - x[col]
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
+            for a in range(nv):
+                Jm[a, col] = (Rp[a] - R0[a]) / h
         xp[col] = x[col]
-        for a in range(nv):
-            Jm[a, col] = (Rp[a] - R0[a]) / h
     # back to x's film coefficients and conductances (the node columns use them)
     _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, Rp)
     # washcoat nodes: each node's own rates, plus the exact film/diffusion terms
@@ -421,14 +437,27 @@ def jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm):
         for v in range(nb):
             col = base + v
             h = fd * max(abs(x[col]), sc[col])
-            if v >= nf and x[col] > 0.5:
-                h = -h
-            xp[col] = x[col] + h
-            h = xp[col] - x[col]
-            _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp, 0)
-            xp[col] = x[col]
-            for q in range(lo, hi):
-                dr[q] = (rp[0, q] - W.r[n, q]) / h
+            if x[col] - h >= 0.0 and (v < nf or x[col] + h <= 1.0):
+                # central differences where both sides are inside the bounds (Temkin and
+                # Arrhenius-like terms are strongly curved: forward steps cost ~1e-6 accuracy)
+                xp[col] = x[col] + h
+                up = xp[col]
+                _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp, 0)
+                xp[col] = x[col] - h
+                h = up - xp[col]
+                _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp, 1)
+                xp[col] = x[col]
+                for q in range(lo, hi):
+                    dr[q] = (rp[0, q] - rp[1, q]) / h
+            else:
+                if v >= nf and x[col] > 0.5:
+                    h = -h
+                xp[col] = x[col] + h
+                h = xp[col] - x[col]
+                _node_rates(st, n, xp, base, Ts, W.kT, W.kinv, W.inhK, W.Deff, rp, 0)
+                xp[col] = x[col]
+                for q in range(lo, hi):
+                    dr[q] = (rp[0, q] - W.r[n, q]) / h
             for i in range(NSP):
                 d = 0.0
                 for q in range(lo, hi):
@@ -466,14 +495,20 @@ def jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm):
                     Jm[row, col] = d
                 else:
                     Jm[row, col] = 1.0 if v == nf + s else 0.0
-    # solid temperature last: the whole residual (it overwrites the rates in W)
+    # solid temperature last: the whole residual (it overwrites the rates in W), by central
+    # differences (Arrhenius terms make this the most curved column: E/(R T^2) ~ 0.1-0.5 1/K)
     h = fd * max(abs(x[IT_S]), sc[IT_S])
     xp[IT_S] = x[IT_S] + h
-    h = xp[IT_S] - x[IT_S]
+    up = xp[IT_S]
+    residual(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
+    for a in range(nv):
+        Jm[a, IT_S] = Rp[a]
+    xp[IT_S] = x[IT_S] - h
+    h = up - xp[IT_S]
     residual(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
     xp[IT_S] = x[IT_S]
     for a in range(nv):
-        Jm[a, IT_S] = (Rp[a] - R0[a]) / h
+        Jm[a, IT_S] = (Jm[a, IT_S] - Rp[a]) / h
 
 
 # ---------------------------------------------------------------------------------------------
@@ -691,7 +726,7 @@ def _bounds(st, fl, lower, upper, floor):
     nv = lower.shape[0]
     scales(st, fl, floor)
     for i in range(nv):
-        floor[i] *= 1e-10
+        floor[i] *= 1e-6
         lower[i] = i < NSP
         upper[i] = False
     for n in range(st.nnode):
@@ -958,6 +993,21 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
                     break
             lam = min(1.0, max(lam_ok, 1e-3) * grow) if lam_ok > 0.0 else lam / 4.0
         W.lam[0] = 1.0
+        residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
+        rn = norm(W.R)
+        if not (rn < tol_acc or (st_[1] > 0.0 and rn < STALL_TOL)):
+            # ignition: the cool solution of the cell's heat balance can end at a fold, which
+            # no path from the cool side passes; the hot one is searched from hotter starts
+            for k in range(1, 9):
+                for i in range(nv):
+                    x[i] = x0[i]
+                x[IT_S] = x0[IT_S] + HOT_STEP_K * k
+                x[IT_G] = x0[IT_G] + 0.5 * HOT_STEP_K * k
+                _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
+                _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, False, cfg, bnd_lo,
+                        bnd_hi, floor, W, st_, tol, max_it, max_jac)
+                if st_[0] < tol_acc or (st_[1] > 0.0 and st_[0] < STALL_TOL):
+                    break
     # leave the rates and extents of the final state in W
     residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
     rn = norm(W.R)
@@ -1132,7 +1182,7 @@ def make_work(st) -> Work:
                 r=np.zeros((st.nnode, R)), xi=np.zeros(R), cb=np.zeros(nf), Dg=np.ones(nf),
                 km=np.ones(nf), half=np.ones((st.nnode, nf)), G=np.ones((st.nnode, nf)),
                 R=vec(), Rt=vec(), R0=vec(), Rp=vec(), xt=vec(), dx=vec(), xp=vec(), sc=vec(),
-                rp=np.zeros((1, R)), dr=np.zeros(R), J=np.zeros((nv, nv)),
+                rp=np.zeros((2, R)), dr=np.zeros(R), J=np.zeros((nv, nv)),
                 col=np.zeros(nb), rhs=np.zeros(max(st.nnode * nb, 1)), tmp=np.zeros(nb),
                 tS=np.zeros(NG), lo=np.zeros((st.nnode, ns)), hi=np.ones((st.nnode, ns)),
                 lower=np.zeros(nv, dtype=np.bool_), upper=np.zeros(nv, dtype=np.bool_),

@@ -547,14 +547,18 @@ class BrickProblem:
         return (np.ascontiguousarray(Sh), np.ascontiguousarray(Nu), scale,
                 np.ascontiguousarray(T_scale)), notes
 
-    def stored_nh3_mol(self, x: np.ndarray) -> float:
-        """NH3 held on the storage sites [mol]: sum of Omega theta V_node."""
+    def stored_nh3_per_cell(self, x: np.ndarray) -> np.ndarray:
+        """NH3 held on the storage sites of each cell [mol]: sum of Omega theta V_node."""
         st = self.static
         if not st.ns:
-            return 0.0
+            return np.zeros(st.n)
         th = self.layout.coverage(x)                                   # [n, nnode, ns]
         w = (st.cap * st.site_used)[None] * (st.vol[:, None] * st.node_frac[None, :])[..., None]
-        return float(np.sum(th * w))
+        return np.sum(th * w, axis=(1, 2))
+
+    def stored_nh3_mol(self, x: np.ndarray) -> float:
+        """NH3 held on the storage sites [mol]."""
+        return float(self.stored_nh3_per_cell(x).sum())
 
     def capacity_mol(self) -> float:
         """NH3 held when every site is full [mol]."""

@@ -77,8 +77,8 @@ class TransientSettings:
     tol: float = 1e-8
     tol_accept: float = 1e-7
     error_control: bool = True
-    atol_coverage: float = 2e-3
-    atol_T_K: float = 0.2
+    atol_coverage: float = 2e-4
+    atol_T_K: float = 0.02
     rtol: float = 0.0
     dt_min_s: float = 1e-3
     max_substeps: int = 2000
@@ -410,7 +410,10 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
                 hmin = min(st.dt_min_s, rest)
                 if err > 1.0 and h_try > hmin and len(steps) + rej[i] < st.max_substeps:
                     rej[i] += 1
-                    h = max(hmin, h_try * min(0.9, max(0.2, 0.9 / np.sqrt(err))))
+                    h = h_try * min(0.9, max(0.2, 0.9 / np.sqrt(err)))
+                    if last:
+                        h = min(h, 0.5 * rest)         # (not stretched onto the sample again)
+                    h = max(hmin, h)
                     continue
                 _commit(state, new, h_try)
                 steps.append((h_try, rec, s_in))

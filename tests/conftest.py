@@ -1,10 +1,20 @@
 """Shared fixtures: test catalysts built from dicts (exactly as a TOML file would give them) and a
 wall-clock guard for solves, so that a solver that never returns fails a test instead of hanging
 the suite."""
+import os
 import signal
 from contextlib import contextmanager
 
 import pytest
+from hypothesis import settings as hyp_settings
+
+# Property tests draw the same examples on every run by default (a CI result that depends on
+# the draw is not a result); `HYPOTHESIS_PROFILE=explore` draws new ones on every run, to hunt
+# for failures (DEVELOPERS.md).
+hyp_settings.register_profile("repeatable", derandomize=True, print_blob=True)
+hyp_settings.register_profile("explore", derandomize=False, print_blob=True,
+                              max_examples=1000)
+hyp_settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
 
 from aftertreat.catalyst import parse_catalyst
 
