@@ -22,6 +22,7 @@ calls per cell). The control that stays in Python is the brick-level strategy in
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 from numba import njit
@@ -44,10 +45,33 @@ STALL_TOL = 1e-7
 #: solid-temperature steps of the hot starts of a cell that ignites [K]
 HOT_STEP_K = 50.0
 
+
+
+def _cache_probe():
+    return 0
+
+
+def _can_cache() -> bool:
+    """Whether numba can keep compiled code on disk for this file: beside it in __pycache__,
+    else in the user's cache folder (numba's own order; NUMBA_CACHE_DIR overrides both). A
+    read-only install with no writable home has neither; then the kernel compiles in memory at
+    every start (~1 min) and says so once."""
+    try:
+        njit(cache=True)(_cache_probe)
+    except RuntimeError as exc:                    # "cannot cache function ...: no locator"
+        warnings.warn(f"no writable cache folder for the compiled kernel ({exc}); it will be "
+                      "compiled at every start (about a minute); set NUMBA_CACHE_DIR to a "
+                      "writable folder to keep it", RuntimeWarning, stacklevel=3)
+        return False
+    return True
+
+
+CACHED = _can_cache()
+
 # No reference counting inside the kernel: every array is allocated in Python (``Work``), so
 # the runtime's per-call reference counts of the many arrays in the problem tuples (measured:
 # ~3 us per internal call) are not needed.
-_jit = njit(cache=True, nogil=True, _nrt=False)
+_jit = njit(cache=CACHED, nogil=True, _nrt=False)
 
 
 # ---------------------------------------------------------------------------------------------

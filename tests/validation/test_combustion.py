@@ -6,7 +6,7 @@ are round-off of a 6x6 linear solve on O(1..100) mol/s numbers.
 """
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import HealthCheck, given, settings, strategies as st
 
 from aftertreat.combustion import (FuelBlend, combustion, dry_air, exhaust_from_measurements,
                                    fuel_data, fuel_molar_mass, lhv_J_mol, lhv_MJ_kg)
@@ -68,7 +68,8 @@ _shares = st.lists(st.floats(0.0, 1.0), min_size=4, max_size=4).filter(lambda v:
 _ppm = st.floats(0.0, 3000.0)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(shares=_shares, lam=st.floats(1.2, 4.0), hum=st.floats(0.0, 25.0),
        cracked=st.booleans(), no=_ppm, no2=_ppm, nh3=_ppm, n2o=_ppm, h2=_ppm)
 def test_element_balance(shares, lam, hum, cracked, no, no2, nh3, n2o, h2):

@@ -129,7 +129,8 @@ SCR = {"vanadia_extruded": at.Substrate.extruded(cpsi=35, wall_mm=0.7),
        "fe_zeolite": at.Substrate.coated(cpsi=400, wall_mil=4, washcoat_um=(80,))}
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow,
+                                                               HealthCheck.function_scoped_fixture])
 @given(kind=hs.sampled_from(sorted(SCR)), T_C=hs.floats(200, 550), anr=hs.floats(0, 2),
        f2=hs.floats(0, 0.7), L=hs.floats(0.05, 1.5), grow=hs.floats(1.01, 2.0))
 def test_longer_scr_never_leaves_more_nox(kind, T_C, anr, f2, L, grow):
