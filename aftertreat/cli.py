@@ -107,6 +107,10 @@ def _with_status(args, label: str, compute):
     if args.json:
         return compute(None)
     from rich.console import Console
+    from .solver import compiled_kernel_cached, default_kernel
+    if default_kernel() != "numpy" and compiled_kernel_cached() is False:
+        label = f"{label} (first run: compiling the solver kernel for this machine, once, " \
+                "about 1-2 minutes)"
     with Console(stderr=True).status(f"{label}...") as status:
         return compute(lambda text: status.update(f"{label}: {text}"))
 

@@ -44,6 +44,8 @@ STEP_TOL = 1e-10
 STALL_TOL = 1e-7
 #: solid-temperature steps of the hot starts of a cell that ignites [K]
 HOT_STEP_K = 50.0
+#: a start whose scaled residual is below this is taken without trying the next candidate
+START_GOOD = 1e-3
 
 
 
@@ -282,9 +284,11 @@ def _all_rates(st, fl, x, W):
 
 
 @_jit
-def _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
+def _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R, n_eval):
     """The residual of cell ``j`` at ``x`` from the rates already in ``W.r`` (and the
-    temperature pieces of x's solid temperature in ``W``); fills ``W.xi``, ``W.km``, ``W.G``."""
+    temperature pieces of x's solid temperature in ``W``); fills ``W.xi``, ``W.km``, ``W.G``.
+    Only the rows of the first ``n_eval`` washcoat nodes are written (the others are left as
+    they are): the gas columns of the Jacobian need only the nodes that see the bulk gas."""
     nf, ns, nn = st.nf, st.ns, st.nnode
     nb = nf + ns
     Tg = x[IT_G]
@@ -327,16 +331,16 @@ def _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
     for f in range(nf):
         W.km[f] = fl.Sh[j, f] * W.Dg[f] / st.d_h if st.film else 1e12
     if st.resolved:
-        for n in range(nn):
+        for n in range(min(n_eval + 1, nn)):
             k = st.node_layer[n]
             for f in range(nf):
                 W.half[n, f] = st.node_dx[n] / (2.0 * W.Deff[k, f])
         for f in range(nf):
             W.G[0, f] = 1.0 / (1.0 / W.km[f] + W.half[0, f])
-        for n in range(1, nn):
+        for n in range(1, min(n_eval + 1, nn)):
             for f in range(nf):
                 W.G[n, f] = 1.0 / (W.half[n - 1, f] + W.half[n, f])
-    for n in range(nn):
+    for n in range(n_eval):
         base = NODE0 + n * nb
         w = st.node_frac[n] / st.gsa
         for f in range(nf):
@@ -372,7 +376,7 @@ def _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
 def residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
     """Scaled residual of cell ``j`` into ``R`` (rates, extents and pieces left in ``W``)."""
     _all_rates(st, fl, x, W)
-    _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R)
+    _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R, st.nnode)
 
 
 @_jit
@@ -425,28 +429,32 @@ def jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm):
             Jm[a, b] = 0.0
     # gas columns: flows and gas temperature, with the rates held (they depend on neither)
     # (central differences where the step stays inside the bounds: the log mean of a flow near
-    # zero is curved on the scale of the flow itself)
+    # zero is curved on the scale of the flow itself). Of the washcoat rows only those of the
+    # nodes that see the bulk gas depend on these columns: all nodes with one node per layer,
+    # the first node of a resolved washcoat
+    n_gas = 1 if st.resolved else nn
+    rows = NODE0 + n_gas * nb
     for col in range(NSP + 1):
         h = fd * max(abs(x[col]), sc[col])
         xp[col] = x[col] + h
         if x[col] - h >= 0.0:
             up = xp[col]
-            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
-            for a in range(nv):
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp, n_gas)
+            for a in range(rows):
                 Jm[a, col] = Rp[a]
             xp[col] = x[col] - h
             h = up - xp[col]
-            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
-            for a in range(nv):
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp, n_gas)
+            for a in range(rows):
                 Jm[a, col] = (Jm[a, col] - Rp[a]) / h
         else:
             h = xp[col] - x[col]
-            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp)
-            for a in range(nv):
+            _assemble(st, fl, j, xp, Fin, Tgin, xo, inv_dt, W, Rp, n_gas)
+            for a in range(rows):
                 Jm[a, col] = (Rp[a] - R0[a]) / h
         xp[col] = x[col]
     # back to x's film coefficients and conductances (the node columns use them)
-    _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, Rp)
+    _assemble(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, Rp, nn)
     # washcoat nodes: each node's own rates, plus the exact film/diffusion terms
     Ts = x[IT_S]
     nu = st.nu_gas if inv_dt > 0.0 else st.nu_equiv
@@ -1079,14 +1087,6 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
                 best = r
                 for i in range(nv):
                     x[i] = cand[i]
-        if j > 0:
-            residual(st, fl, j, X[j - 1], Fin, Tgin, xo, inv_dt, W, W.R)
-            cnt += 1
-            r = norm(W.R)
-            if r == r and r < best:
-                best = r
-                for i in range(nv):
-                    x[i] = X[j - 1, i]
         if j > 1:
             # the two upstream cells extrapolated (geometrically where both are positive: the
             # profiles are close to exponential), projected into the bounds
@@ -1106,6 +1106,16 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
                 best = r
                 for i in range(nv):
                     x[i] = cand[i]
+        if j > 0 and best > START_GOOD:
+            # the upstream cell itself, unless a start above is already good (the extrapolated
+            # one nearly always is: it saves one residual per cell)
+            residual(st, fl, j, X[j - 1], Fin, Tgin, xo, inv_dt, W, W.R)
+            cnt += 1
+            r = norm(W.R)
+            if r == r and r < best:
+                best = r
+                for i in range(nv):
+                    x[i] = X[j - 1, i]
         if best == 1e300:
             for i in range(nv):
                 x[i] = X[j, i]                     # the raw inlet state

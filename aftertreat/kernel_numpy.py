@@ -48,6 +48,8 @@ STEP_TOL = 1e-10
 STALL_TOL = 1e-7
 #: solid-temperature steps of the hot starts of a cell that ignites [K]
 HOT_STEP_K = 50.0
+#: a start whose scaled residual is below this is taken without trying the next candidate
+START_GOOD = 1e-3
 
 
 def cell_mean(c_in, c_out):
@@ -598,11 +600,19 @@ def march(st: KernelStatic, fl: KernelFlow, X, guess, x_old, inv_dt, factors, cf
     fac = None
     for j in range(n):
         xo = x_old[j] if x_old is not None else zero
-        cands = []
+        # starts in turn: the warm-start guess, the two upstream cells extrapolated, and the
+        # upstream cell itself unless a start before it is already good (START_GOOD)
+        best = None
+
+        def consider(c):
+            nonlocal best
+            rc = norm(cell_residual(st, fl, j, c, F_in, Tg_in, xo, inv_dt))
+            nres[j] += 1
+            if np.isfinite(rc) and (best is None or rc < best[1]):
+                best = (c, rc)
+
         if guess is not None:
-            cands.append(project(guess[j].copy(), bnds[0], bnds[1]))
-        if j > 0:
-            cands.append(X[j - 1])
+            consider(project(guess[j].copy(), bnds[0], bnds[1]))
         if j > 1:
             # the two upstream cells extrapolated (geometrically where both are positive: the
             # profiles are close to exponential), projected into the bounds
@@ -611,13 +621,9 @@ def march(st: KernelStatic, fl: KernelFlow, X, guess, x_old, inv_dt, factors, cf
             geo = bnds[0] & (a1 > 0) & (a2 > 0)
             with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 ex = np.where(geo, a1 * (a1 / np.where(geo, a2, 1.0)) ** w, a1 + (a1 - a2) * w)
-            cands.append(project(ex, bnds[0], bnds[1]))
-        best = None
-        for c in cands:
-            rc = norm(cell_residual(st, fl, j, c, F_in, Tg_in, xo, inv_dt))
-            nres[j] += 1
-            if np.isfinite(rc) and (best is None or rc < best[1]):
-                best = (c, rc)
+            consider(project(ex, bnds[0], bnds[1]))
+        if j > 0 and (best is None or best[1] > START_GOOD):
+            consider(X[j - 1])
         if best is None:
             x0 = X[j].copy()                            # the raw inlet state
             _balance_coverage(st, fl, j, x0, F_in, Tg_in, xo, inv_dt, *bnds[:2])

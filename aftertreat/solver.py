@@ -44,7 +44,8 @@ from .species import ELEMENT_MATRIX, INDEX
 from .units import R_GAS
 
 __all__ = ["SolverSettings", "WarmStart", "SolveOutcome", "KERNELS", "KernelWarning",
-           "set_default_kernel", "default_kernel", "get_kernel", "solve", "step", "balances"]
+           "set_default_kernel", "default_kernel", "get_kernel", "solve", "step", "balances",
+           "compiled_kernel_cached"]
 
 KERNELS = ("auto", "numba", "numpy")
 _NH3 = INDEX["NH3"]
@@ -182,6 +183,17 @@ class _NumbaKernel:
         self.k.march(st, fl, X, g, guess is not None, xo, float(inv_dt), factors.FF, factors.FI,
                      factors.ok, np.asarray(cfg, dtype=float), conv, res, njac, nres, XI, work)
         return conv, res, njac, nres, XI[:, :st.nrxn]
+
+
+def compiled_kernel_cached() -> bool | None:
+    """Whether the compiled kernel's march is in numba's on-disk cache for the current source
+    (False: the next solve compiles it, about 1-2 minutes on 2 cores; None: numba missing, or
+    its cache cannot be inspected). For a status line only; reads numba's cache index."""
+    try:
+        from . import kernel_numba
+        return bool(kernel_numba.march._cache._cache_file._load_index())
+    except Exception:                                  # private API of numba: best effort
+        return None
 
 
 def _load_numba():

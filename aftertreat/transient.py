@@ -25,8 +25,10 @@ coverages and solid temperatures against ``atol_coverage + rtol |theta|`` and
 ``atol_T_K + rtol |T|``; a step above 1 is redone shorter, and the next step is sized
 h <- h min(4, max(0.2, 0.9 / sqrt(err))). Implicit Euler is L-stable, so any step is stable;
 the control is for accuracy (a hot step releasing stored NH3 changes the coverage within
-seconds, a breakthrough front over minutes). Results are reported on the input's own grid,
-with the sub-steps counted.
+seconds, a breakthrough front over minutes). The step size changes only when the estimate
+allows 1.5x or more, and each input interval is split into equal sub-steps: a new step size
+costs every cell a new Jacobian, while an unchanged one lets the last sub-step's factors serve
+as chords. Results are reported on the input's own grid, with the sub-steps counted.
 
 Axial conduction in the solid (off by default) is applied after each sub-step as an implicit
 diffusion step on T_s (Lie splitting; conserves the brick's heat, unconditionally stable), with
@@ -70,13 +72,16 @@ class TransientSettings:
     1e-8 is 0.01 ppm). ``error_control`` sub-steps each input interval as the local error
     estimate asks (module docstring), with tolerances ``atol_coverage`` [-], ``atol_T_K`` [K]
     and ``rtol`` [-], steps no shorter than ``dt_min_s`` and at most ``max_substeps`` per
-    interval; without it, one implicit-Euler step per input interval. ``conduction`` switches
+    interval; without it, one implicit-Euler step per input interval. ``method``: ``"bdf2"``
+    (second order, variable step; a sub-step without an accepted one before it is implicit
+    Euler) or ``"euler"`` (implicit Euler throughout). ``conduction`` switches
     axial heat conduction in the brick solid on, with ``k_solid_W_mK`` the solid's
     conductivity (cordierite and titania about 1-3 W/(m K), from memory).
     """
     tol: float = 1e-8
     tol_accept: float = 1e-7
     error_control: bool = True
+    method: str = "bdf2"
     atol_coverage: float = 2e-4
     atol_T_K: float = 0.02
     rtol: float = 0.0
@@ -116,7 +121,9 @@ class TrainState:
     train: object
     bricks: list[_BrickRun]
     t_s: float = 0.0
-    history: tuple | None = None          # (states one step earlier, that step's length)
+    #: accepted states before the current one, most recent first, each with the length of the
+    #: step that left it: [(states at t - h1, h1), (states at t - h1 - h2, h2)] (at most two)
+    history: list | None = None
 
     def stored_nh3_mol(self) -> np.ndarray:
         """NH3 stored in each brick [mol]."""
@@ -188,15 +195,41 @@ class StepRecord:
     jacobians: int
 
 
-def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings, ss):
-    """One implicit-Euler step of every brick from ``state`` (not committed): the new states,
-    bound problems, factors and pressure drops, and the step's record."""
+def _bdf2(state: TrainState, h: float, st: TransientSettings):
+    """(omega, a0, gamma) of a variable-step BDF2 step of ``h`` after the last accepted step
+    h1 (omega = h/h1): a0 x_n+1 - (1 + omega) x_n + omega^2/(1 + omega) x_n-1 = h f_n+1,
+    a0 = (1 + 2 omega)/(1 + omega) (e.g. Hairer & Wanner 1996, ch. III.5), written as an
+    implicit-Euler step of h/a0 from x* = ((1 + omega)^2 x_n - omega^2 x_n-1)/(1 + 2 omega);
+    gamma = omega^2/(1 + 2 omega) is the share of the last step's change carried into this
+    one (x_n+1 - x_n = h/a0 f_n+1 + gamma (x_n - x_n-1)). None: implicit Euler."""
+    if st.method != "bdf2" or not state.history:
+        return None
+    om = h / state.history[0][1]
+    return om, (1.0 + 2.0 * om) / (1.0 + om), om * om / (1.0 + 2.0 * om)
+
+
+def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings, ss,
+              coef=None):
+    """One step of ``dt`` of every brick from ``state`` (not committed): implicit Euler, or
+    BDF2 with ``coef`` from :func:`_bdf2` (the differential unknowns start from x* and the
+    step is dt/a0). Returns the new states, bound problems, factors and pressure drops, and the
+    step's record."""
     stream = inlet
     new, outlets = [], []
     ok, worst, reacted, jac = True, 0.0, 0.0, 0
-    for run in state.bricks:
+    for k, run in enumerate(state.bricks):
         bound = run.problem.bind(stream, like=run.bound)
-        out = solver.step(bound, run.x, dt, factors=run.factors, settings=ss)
+        if coef is None:
+            out = solver.step(bound, run.x, dt, factors=run.factors, settings=ss)
+        else:
+            om, a0, _ = coef
+            x_prev = state.history[0][0][k]
+            diff = run.layout.differential()
+            x_star = run.x.copy()
+            x_star[:, diff] = ((1.0 + om) ** 2 * run.x[:, diff]
+                               - om * om * x_prev[:, diff]) / (1.0 + 2.0 * om)
+            out = solver.step(bound, x_star, dt / a0, guess=run.x, factors=run.factors,
+                              settings=ss)
         x = out.x
         if st.conduction:
             _conduct(run.problem, x, dt, st.k_solid_W_mK)
@@ -216,7 +249,7 @@ def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings
 
 
 def _commit(state: TrainState, new, dt: float) -> None:
-    state.history = ([r.x for r in state.bricks], dt)
+    state.history = [([r.x for r in state.bricks], dt)] + (state.history or [])[:1]
     for run, (bound, x, factors, dp) in zip(state.bricks, new):
         run.bound, run.x, run.factors, run.dp_Pa = bound, x, factors, dp
     state.t_s += dt
@@ -233,18 +266,36 @@ def advance(state: TrainState, inlet: Stream, dt: float,
     return rec
 
 
-def _error(state: TrainState, new, h: float, st: TransientSettings) -> float:
-    """Scaled local error estimate of a step of ``h`` (module docstring); 0 without history."""
-    if state.history is None:
-        prev, h_prev = [r.x for r in state.bricks], h      # a start at rest: derivative 0
-    else:
-        prev, h_prev = state.history
+def _error(state: TrainState, new, h: float, st: TransientSettings, coef=None) -> float:
+    """Scaled local error estimate of a step of ``h`` (module docstring).
+
+    Implicit Euler: h/(h + h1) (x - x_lin), x_lin the linear extrapolation of the last two
+    states (a start at rest: derivative 0). BDF2 with two states before the current one:
+    K_c/(K_c + K_p) (x - x_quad), x_quad the quadratic extrapolation of the last three,
+    K_c = (1 + omega)^2/(omega (1 + 2 omega)) the step's error constant and
+    K_p = (h + h1)(h + h1 + h2)/h^2 the predictor's, both times h^3 d3x/dt3 / 6 (Milne's
+    device; Hairer, Norsett & Wanner 1993, ch. III.7). A BDF2 step with only one state before
+    it takes the first-order estimate (an over-estimate)."""
+    hist = state.history or []
+    two = coef is not None and len(hist) >= 2
     worst = 0.0
-    w = h / (h + h_prev)
-    for run, xp, (_, x, _, _) in zip(state.bricks, prev, new):
+    for k, (run, (_, x, _, _)) in enumerate(zip(state.bricks, new)):
         lay = run.layout
-        pred = run.x + (run.x - xp) * (h / h_prev)
-        e = w * (x - pred)
+        if two:
+            x1, h1 = hist[0][0][k], hist[0][1]
+            x2, h2 = hist[1][0][k], hist[1][1]
+            t1, t2 = -h1, -h1 - h2                   # times of x1, x2; run.x at 0, x at h
+            pred = ((h - t1) * (h - t2) / (t1 * t2) * run.x
+                    + h * (h - t2) / (t1 * (t1 - t2)) * x1
+                    + h * (h - t1) / (t2 * (t2 - t1)) * x2)
+            om = h / h1
+            kc = (1.0 + om) ** 2 / (om * (1.0 + 2.0 * om))
+            kp = (h + h1) * (h + h1 + h2) / (h * h)
+            e = kc / (kc + kp) * (x - pred)
+        else:
+            xp, h1 = (hist[0][0][k], hist[0][1]) if hist else (run.x, h)
+            pred = run.x + (run.x - xp) * (h / h1)
+            e = h / (h + h1) * (x - pred)
         used = run.problem.static.site_used > 0
         cov = np.abs(lay.coverage(e))[:, used]
         if cov.size:
@@ -385,6 +436,7 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
     state.t_s = float(times[0])
     prev_inlet = first
     h_next = float(times[1] - times[0])
+    carry = (np.zeros(NSP), np.zeros(NSP), 0.0)          # the last step's amounts (BDF2)
     for i in range(1, N):
         if progress is not None:
             progress(i, N)
@@ -394,19 +446,27 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
         if not st.error_control:
             new, rec = _step_all(state, inlet, span, st, ss)
             _commit(state, new, span)
-            steps = [(span, rec, inlet)]
+            steps = [(span, 0.0, rec, inlet)]
         else:
             steps = []
             t = t_a
             h = min(h_next, span)
             while t < t_b - 1e-12 * span:
                 rest = t_b - t
-                last = h >= rest or rest - h < 0.2 * h or len(steps) + 1 >= st.max_substeps
-                h_try = rest if last else h
+                # the rest of the interval in equal sub-steps no longer than h: consecutive
+                # sub-steps (and intervals of equal length) then share their step size, so each
+                # cell's Jacobian factors from the last sub-step still serve as chords
+                n_rest = max(1, int(np.ceil(rest / h - 1e-9)))
+                n_rest = max(1, min(n_rest, st.max_substeps - len(steps)))
+                last = n_rest == 1
+                h_try = rest / n_rest
                 w = (t + h_try - t_a) / span
                 s_in = _blend(prev_inlet, inlet, w)
-                new, rec = _step_all(state, s_in, h_try, st, ss)
-                err = _error(state, new, h_try, st) if rec.converged else np.inf
+                coef = _bdf2(state, h_try, st)
+                if coef is not None and coef[0] > 2.0:
+                    coef = None          # BDF2 is zero-stable for omega < 1 + sqrt(2) only
+                new, rec = _step_all(state, s_in, h_try, st, ss, coef)
+                err = _error(state, new, h_try, st, coef) if rec.converged else np.inf
                 hmin = min(st.dt_min_s, rest)
                 if err > 1.0 and h_try > hmin and len(steps) + rej[i] < st.max_substeps:
                     rej[i] += 1
@@ -416,23 +476,35 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
                     h = max(hmin, h)
                     continue
                 _commit(state, new, h_try)
-                steps.append((h_try, rec, s_in))
+                steps.append((h_try / coef[1], coef[2], rec, s_in) if coef is not None
+                             else (h_try, 0.0, rec, s_in))
                 t += h_try
-                grow = min(4.0, max(0.2, 0.9 / np.sqrt(max(err, 1e-12))))
-                h = max(h_try * grow, h) if (last and h_try < h and err <= 1.0) else h_try * grow
+                # (at most doubling: BDF2 needs omega below 1 + sqrt(2))
+                grow = min(2.0 if st.method == "bdf2" else 4.0,
+                           0.9 / np.sqrt(max(err, 1e-12)))
+                # the nominal step is kept unless the estimate allows 1.5x or more (hysteresis:
+                # a new step size costs every cell a new Jacobian)
+                if grow >= 1.5:
+                    h = max(h, h_try * grow)
                 h = max(h, st.dt_min_s)
             h_next = max(h, st.dt_min_s)
-        rec = steps[-1][1]
+        rec = steps[-1][2]
         record(i, inlet, rec.outlet)
-        conv[i] = all(s[1].converged for s in steps)
-        resid[i] = max(s[1].residual for s in steps)
-        jac[i] = sum(s[1].jacobians for s in steps)
+        conv[i] = all(s[2].converged for s in steps)
+        resid[i] = max(s[2].residual for s in steps)
+        jac[i] = sum(s[2].jacobians for s in steps)
         reacted[i] = rec.reacted_nh3_mol_s
         subs[i] = len(steps)
-        for h, r, s_in in steps:
-            in_mol[i] += h * s_in.F
-            out_mol[i] += h * r.outlet.F
-            reacted_mol[i] += h * r.reacted_nh3_mol_s
+        for h_eff, gamma, r, s_in in steps:
+            # the amounts of the account as the step sums them: x_n+1 - x_n = h_eff f_n+1
+            # (+ gamma (x_n - x_n-1) for BDF2), so that in - out = destroyed + change in
+            # storage holds exactly, step by step
+            inc = (h_eff * s_in.F + gamma * carry[0], h_eff * r.outlet.F + gamma * carry[1],
+                   h_eff * r.reacted_nh3_mol_s + gamma * carry[2])
+            in_mol[i] += inc[0]
+            out_mol[i] += inc[1]
+            reacted_mol[i] += inc[2]
+            carry = inc
         prev_inlet = inlet
     return TransientResult(t_s=times.copy(), inlet_F=inF, inlet_T_K=inT, outlet_F=outF,
                            outlet_T_K=outT, stored_nh3_mol=stored, solid_T_mean_K=Tmean,

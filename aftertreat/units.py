@@ -68,12 +68,12 @@ def to_si(value, unit: str, *, key: str | None = None, file: str | None = None) 
     A bare number is taken to be in ``unit`` already. A string is parsed with its own unit, which
     must be dimensionally compatible with ``unit``. Errors are :class:`InputError` naming the key.
     """
-    reg = _registry()
     if isinstance(value, bool):
         raise InputError(f"expected a number or a quantity in units of {unit}", key=key,
                          value=value, file=file)
     if isinstance(value, (int, float)):
         return float(value)
+    reg = _registry()                     # only for texts: building it costs ~0.3 s
     if isinstance(value, str):
         import re
         # the trade's "mil" (wall thickness) is pint's "thou"; pint's own "mil" is not a length

@@ -36,7 +36,7 @@ print(f"{t1 - t0:.3f} {t2 - t1:.3f} {sol.converged}")
 
 #: simulates an install where neither the package folder nor the user cache folder can be
 #: written (as root, file permissions cannot show it): numba is left with no cache locator
-NO_LOCATOR = "import numba.core.caching as c; c._CacheImpl._locator_classes = []\n"
+NO_LOCATOR = "import numba.core.caching as c; c.CacheImpl._locator_classes = []\n"
 
 
 def run(code, env=None):

@@ -200,6 +200,32 @@ def test_kernel_constants_agree():
     """The numba kernel keeps its own copies of the numerical constants (numba's cache checks
     only the kernel's own file, so importing them would let a stale compiled kernel run with
     old values): they must equal the reference kernel's."""
-    for name in ("_FLOOR", "STEP_TOL", "STALL_TOL", "HOT_STEP_K", "NSP"):
+    for name in ("_FLOOR", "STEP_TOL", "STALL_TOL", "HOT_STEP_K", "START_GOOD", "NSP"):
         assert getattr(kb, name) == getattr(kn, name), name
     assert (kb._TMIN, kb._TMAX) == (kn._T_MIN, kn._T_MAX)
+
+
+def _python(code, **env):
+    import os
+    import subprocess
+    import sys
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env={**os.environ, **env}, timeout=120)
+
+
+def test_cache_state_is_reported(tmp_path):
+    """An empty cache folder is reported as not compiled (the CLI then says it compiles)."""
+    p = _python("from aftertreat.solver import compiled_kernel_cached as c; print(c())",
+                NUMBA_CACHE_DIR=str(tmp_path))
+    assert p.returncode == 0 and p.stdout.strip() == "False", p.stderr
+
+
+def test_no_writable_cache_folder_compiles_in_memory_with_one_warning():
+    """With no cache locator (a read-only install and home; simulated, since file permissions
+    do not bind root), the kernel module still imports, uncached, with one warning line."""
+    p = _python("import warnings; warnings.simplefilter('always')\n"
+                "import numba.core.caching as c; c.CacheImpl._locator_classes = []\n"
+                "from aftertreat import kernel_numba as k; print(k.CACHED)")
+    assert p.returncode == 0 and p.stdout.strip() == "False", p.stderr
+    lines = [x for x in p.stderr.splitlines() if "RuntimeWarning" in x]
+    assert len(lines) == 1 and "NUMBA_CACHE_DIR" in lines[0]
