@@ -629,7 +629,10 @@ def march(st: KernelStatic, fl: KernelFlow, X, guess, x_old, inv_dt, factors, cf
             _balance_coverage(st, fl, j, x0, F_in, Tg_in, xo, inv_dt, *bnds[:2])
             nres[j] += 14
             best = (x0, 0.0)
-        f0 = factors[j] if factors is not None and factors[j] is not None else fac
+        # chords: this cell's factors from the last solve, unless the upstream cell has just
+        # formed a Jacobian in this one (aftertreat.kernel_numba.march)
+        own = factors is not None and factors[j] is not None and not (j > 0 and njac[j - 1] > 0)
+        f0 = factors[j] if own else fac
         x, rn, ok, fac, nj, nr = solve_cell(st, fl, j, best[0], F_in, Tg_in, xo, inv_dt, f0,
                                             cfg, bnds)
         if fac is None:

@@ -16,19 +16,19 @@ state and 1/dt as data (:func:`aftertreat.solver.step`), solved by the same marc
 steady state, with the previous step's Jacobian factors as chords.
 
 Error-controlled steps. Between two samples of the input (a trace's own time grid) the inlet
-is taken linear in time, and the interval is crossed in as many implicit-Euler sub-steps as a
-local error estimate asks for. The estimate compares each step's result with the linear
-extrapolation of the two states before it: for implicit Euler with that predictor the local
-error is about h/(h + h_prev) (x - x_pred) (the predictor-corrector estimate of variable-step
-BDF codes; Hairer & Wanner 1996, ch. III.7; Shampine 1994, ch. 4). It is measured on the
-coverages and solid temperatures against ``atol_coverage + rtol |theta|`` and
-``atol_T_K + rtol |T|``; a step above 1 is redone shorter, and the next step is sized
-h <- h min(4, max(0.2, 0.9 / sqrt(err))). Implicit Euler is L-stable, so any step is stable;
-the control is for accuracy (a hot step releasing stored NH3 changes the coverage within
-seconds, a breakthrough front over minutes). The step size changes only when the estimate
-allows 1.5x or more, and each input interval is split into equal sub-steps: a new step size
-costs every cell a new Jacobian, while an unchanged one lets the last sub-step's factors serve
-as chords. Results are reported on the input's own grid, with the sub-steps counted.
+is taken linear in time, and the interval is crossed in as many sub-steps as a local error
+estimate asks for. A sub-step is variable-step BDF2 (second order, L-stable; Hairer & Wanner
+1996, ch. III.5, V.1), written as the implicit-Euler residual of the kernels with a modified old
+state x* and step h/a0 (:func:`_bdf2`); the first sub-step of a run, and any sub-step that would
+grow the step more than twofold, is implicit Euler. The local error is estimated from the
+extrapolation of the states before the step (Milne's device, :func:`_error`; Hairer, Norsett &
+Wanner 1993, ch. III.7) and measured on the coverages and solid temperatures against
+``atol_coverage + rtol |theta|`` and ``atol_T_K + rtol |T|``; a step above 1 is redone shorter,
+and the next may grow by up to 0.9/sqrt(err) (at most twofold). The step size changes only when
+the estimate allows 1.5x or more, and each input interval is split into equal sub-steps: a new
+step size costs every cell a new Jacobian, while an unchanged one lets the last sub-step's
+factors serve as chords. Results are reported on the input's own grid, with the sub-steps
+counted. ``method = "euler"`` keeps implicit Euler with its first-order estimate.
 
 Axial conduction in the solid (off by default) is applied after each sub-step as an implicit
 diffusion step on T_s (Lie splitting; conserves the brick's heat, unconditionally stable), with
@@ -36,7 +36,9 @@ k_ax = (1 - OFA) k_solid.
 
 Conservation: at converged steps the NH3 that enters minus what leaves equals the NH3 destroyed
 by reaction (gas or stored, ``nu_equiv``) plus the change of the amount stored, summed over the
-sub-steps as implicit Euler sums them; :meth:`TransientResult.nh3_account` holds the totals.
+sub-steps as the method sums them (for BDF2, x_n+1 - x_n = h/a0 f_n+1 + gamma (x_n - x_n-1),
+so each step's amounts carry gamma times the last step's); :meth:`TransientResult.nh3_account`
+holds the totals.
 
 References
 ----------
@@ -228,7 +230,10 @@ def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings
             x_star = run.x.copy()
             x_star[:, diff] = ((1.0 + om) ** 2 * run.x[:, diff]
                                - om * om * x_prev[:, diff]) / (1.0 + 2.0 * om)
-            out = solver.step(bound, x_star, dt / a0, guess=run.x, factors=run.factors,
+            # start from the linear extrapolation in time (the march projects it into the
+            # bounds and keeps it only where it beats the cell's other starts)
+            guess = run.x + (run.x - x_prev) * om
+            out = solver.step(bound, x_star, dt / a0, guess=guess, factors=run.factors,
                               settings=ss)
         x = out.x
         if st.conduction:
@@ -392,8 +397,8 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
     ``times`` [s] (increasing); ``inlets`` gives the train inlet at each time: a list of
     :class:`Stream`, or a callable ``inlets(i, state) -> Stream`` (a dosing controller sees the
     state at sample i - 1). The run starts from ``state`` (default: the steady state at the
-    first inlet, :func:`start`); each interval is crossed in error-controlled implicit-Euler
-    sub-steps with the inlet linear in time (module docstring), or in one step when
+    first inlet, :func:`start`); each interval is crossed in error-controlled sub-steps (BDF2)
+    with the inlet linear in time (module docstring), or in one implicit-Euler step when
     ``settings.error_control`` is off.
     """
     st = settings or TransientSettings()
