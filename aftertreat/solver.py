@@ -76,7 +76,8 @@ class SolverSettings:
     before it (module docstring, "Branches").
     ``rate_continuation``: a cell that Newton cannot solve is followed from nearly unreacting
     (all rates x 1e-3) to its real rates. ``continuation``: pseudo-transient continuation of
-    the whole brick when the marches fail. ``balance_tol``: largest element-balance error accepted [-];
+    the whole brick when the marches fail. ``balance_tol``: largest element-balance error
+    accepted [-];
     ``energy_tol_K``: largest energy-balance error accepted, in kelvin of the gas stream.
     """
     tol: float = 1e-10

@@ -66,7 +66,8 @@ def main():
         print(f"cache: {files} compiled functions, {size / 1e6:.1f} MB")
     # the CLI on the demo genset, with the package's own (warm) cache
     exe = shutil.which("aftertreat")
-    cmd = ([exe] if exe else [sys.executable, "-m", "aftertreat.cli"]) + ["run", "cases/genset_d2.toml"]
+    cmd = (([exe] if exe else [sys.executable, "-m", "aftertreat.cli"])
+           + ["run", "cases/genset_d2.toml"])
     subprocess.run(cmd, capture_output=True, cwd=ROOT)          # make sure the cache is warm
     walls = []
     for _ in range(3):
