@@ -155,22 +155,49 @@ class _NumbaFactors:
 
 
 class _NumbaKernel:
+    """The compiled kernel. Under ``auto`` (``fallback=True``) a failure to compile at the first
+    call switches this object to the numpy reference for good, with one warning."""
     name = "numba"
 
-    def __init__(self, module):
+    def __init__(self, module, fallback=False):
         self.k = module
+        self.fallback = fallback
+        self.spare = None                    # the numpy kernel once compilation failed
 
     def new_factors(self, bound: BoundProblem):
+        if self.spare is not None:
+            return self.spare.new_factors(bound)
         st = bound.static
         nv = bound.layout.nv
         nfl, nin = self.k.fac_sizes(nv, st.nnode, st.nf + st.ns, st.resolved)
         return _NumbaFactors(st.n, nv, nfl, nin)
 
     def factors_fit(self, factors, bound) -> bool:
+        if self.spare is not None:
+            return self.spare.factors_fit(factors, bound)
         return (isinstance(factors, _NumbaFactors) and factors.FF.shape[0] == bound.static.n
                 and factors.nv == bound.layout.nv)
 
     def march(self, bound, X, guess, x_old, inv_dt, factors, cfg):
+        if self.spare is None and self.fallback:
+            try:
+                return self._march(bound, X, guess, x_old, inv_dt, factors, cfg)
+            except Exception as exc:
+                from numba.core.errors import NumbaError
+                if not isinstance(exc, NumbaError):
+                    raise
+                first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+                warnings.warn(f"compiled kernel failed to compile ({type(exc).__name__}: "
+                              f"{first[:120]}); using the numpy reference kernel, which is "
+                              "much slower", KernelWarning, stacklevel=3)
+                self.spare, self.name = _NumpyKernel(), "numpy"
+        if self.spare is not None:
+            if not self.spare.factors_fit(factors, bound):
+                factors = self.spare.new_factors(bound)
+            return self.spare.march(bound, X, guess, x_old, inv_dt, factors, cfg)
+        return self._march(bound, X, guess, x_old, inv_dt, factors, cfg)
+
+    def _march(self, bound, X, guess, x_old, inv_dt, factors, cfg):
         st, fl = bound.static, bound.flow
         n, nv = X.shape
         work = self.k.make_work(st)
@@ -197,12 +224,12 @@ def compiled_kernel_cached() -> bool | None:
         return None
 
 
-def _load_numba():
+def _load_numba(fallback=False):
     try:
         from . import kernel_numba
     except Exception as exc:                          # numba missing or broken
         return None, f"{type(exc).__name__}: {exc}"
-    return _NumbaKernel(kernel_numba), None
+    return _NumbaKernel(kernel_numba, fallback=fallback), None
 
 
 def get_kernel(name: str | None = None):
@@ -218,7 +245,7 @@ def get_kernel(name: str | None = None):
         if k is None:
             raise RuntimeError(f"the numba kernel is not available ({why})")
     elif name == "auto":
-        k, why = _load_numba()
+        k, why = _load_numba(fallback=True)
         if k is None:
             warnings.warn(f"compiled kernel unavailable ({why}); using the numpy reference "
                           "kernel, which is much slower", KernelWarning, stacklevel=2)

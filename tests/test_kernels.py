@@ -185,7 +185,7 @@ def test_transient_steps_agree(kind, washcoat):
 def test_auto_falls_back_to_numpy_with_one_warning(monkeypatch):
     """Without a working numba, "auto" runs the numpy reference and warns once (one line)."""
     import warnings
-    monkeypatch.setattr(solver, "_load_numba", lambda: (None, "ImportError: no numba"))
+    monkeypatch.setattr(solver, "_load_numba", lambda **kw: (None, "ImportError: no numba"))
     monkeypatch.setattr(solver, "_RESOLVED", {})
     with warnings.catch_warnings(record=True) as w:
         warnings.simplefilter("always")
@@ -229,3 +229,27 @@ def test_no_writable_cache_folder_compiles_in_memory_with_one_warning():
     assert p.returncode == 0 and p.stdout.strip() == "False", p.stderr
     lines = [x for x in p.stderr.splitlines() if "RuntimeWarning" in x]
     assert len(lines) == 1 and "NUMBA_CACHE_DIR" in lines[0]
+
+
+def test_auto_falls_back_when_the_kernel_fails_to_compile(monkeypatch):
+    """A compile error of the numba kernel at its first call (simulated) under "auto": the
+    solve completes on the numpy reference, with one warning line, and later solves stay on it."""
+    import warnings
+    from numba.core.errors import TypingError
+
+    def broken(*args):
+        raise TypingError("simulated compile failure")
+
+    monkeypatch.setattr(solver, "_RESOLVED", {})
+    monkeypatch.setattr(kb, "march", broken)
+    s_in = feed(330.0, 800, 100, 900, 20, 0.1, 0.1)
+    with warnings.catch_warnings(record=True) as w:
+        warnings.simplefilter("always")
+        k = solver.get_kernel("auto")
+        out = solver.solve(problem_for(make_brick("cu_chabazite", "effectiveness")).bind(s_in),
+                           settings=solver.SolverSettings(kernel="auto"))
+        again = solver.solve(problem_for(make_brick("fe_zeolite", "none")).bind(s_in),
+                             settings=solver.SolverSettings(kernel="auto"))
+    assert out.converged and again.converged and k.name == "numpy"
+    msgs = [x for x in w if issubclass(x.category, solver.KernelWarning)]
+    assert len(msgs) == 1 and "\n" not in str(msgs[0].message)
