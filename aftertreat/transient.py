@@ -224,12 +224,12 @@ def _step_all(state: TrainState, inlet: Stream, dt: float, st: TransientSettings
         if coef is None:
             out = solver.step(bound, run.x, dt, factors=run.factors, settings=ss)
         else:
-            om, a0, _ = coef
+            om, a0, gamma = coef
             x_prev = state.history[0][0][k]
             diff = run.layout.differential()
+            # x* = ((1 + omega)^2 x_n - omega^2 x_n-1)/(1 + 2 omega) = x_n + gamma (x_n - x_n-1)
             x_star = run.x.copy()
-            x_star[:, diff] = ((1.0 + om) ** 2 * run.x[:, diff]
-                               - om * om * x_prev[:, diff]) / (1.0 + 2.0 * om)
+            x_star[:, diff] += gamma * (run.x[:, diff] - x_prev[:, diff])
             # start from the linear extrapolation in time (the march projects it into the
             # bounds and keeps it only where it beats the cell's other starts)
             guess = run.x + (run.x - x_prev) * om
