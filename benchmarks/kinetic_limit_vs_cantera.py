@@ -27,9 +27,7 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import os
 import pathlib
-import platform
 import sys
 import time
 
@@ -40,6 +38,8 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "validation"))
 
 import numpy as np  # noqa: E402
+
+from machine import print_machine  # noqa: E402
 
 import aftertreat as at  # noqa: E402
 from aftertreat.catalyst import parse_catalyst  # noqa: E402
@@ -52,22 +52,6 @@ def median_time(fn, repeats):
     """(median seconds, last result) of ``repeats`` calls of ``fn``, after one warm-up call."""
     fn()
     return cf.median_seconds(fn, repeats)
-
-
-def machine():
-    import cantera as ct
-    import scipy
-    print("machine")
-    print(f"  platform      {platform.platform()}")
-    print(f"  processor     {platform.processor() or platform.machine()}  ({os.cpu_count()} logical CPUs)")
-    print(f"  python        {platform.python_version()}")
-    print(f"  numpy         {np.__version__}")
-    print(f"  scipy         {scipy.__version__}")
-    print(f"  cantera       {ct.__version__}")
-    threads = {k: os.environ[k] for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
-                                          "MKL_NUM_THREADS") if k in os.environ}
-    print(f"  BLAS threads  {threads or 'library default'}")
-    print()
 
 
 def point(alpha, repeats, T_C=250.0, mol_s=0.3):
@@ -152,7 +136,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=7, help="timed repeats per figure (median)")
     args = ap.parse_args()
-    machine()
+    print_machine()
     print("kinetic limit (film and washcoat off, isothermal), one brick: aftertreat vs Cantera "
           "FlowReactor at 0.5 % on outlet NO")
     print()

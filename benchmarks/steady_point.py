@@ -15,9 +15,7 @@ and its transfer numbers) is included in both.
 from __future__ import annotations
 
 import argparse
-import os
 import pathlib
-import platform
 import statistics
 import sys
 import time
@@ -29,6 +27,8 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "validation"))
 
 import numpy as np  # noqa: E402
+
+from machine import print_machine  # noqa: E402
 
 import aftertreat as at  # noqa: E402
 from aftertreat.catalyst import parse_catalyst  # noqa: E402
@@ -45,20 +45,6 @@ def median_time(fn, repeats):
         out = fn()
         times.append(time.perf_counter() - t0)
     return statistics.median(times), out
-
-
-def machine():
-    import cantera as ct
-    print("machine")
-    print(f"  platform      {platform.platform()}")
-    print(f"  processor     {platform.processor() or platform.machine()}  ({os.cpu_count()} logical CPUs)")
-    print(f"  python        {platform.python_version()}")
-    print(f"  numpy         {np.__version__}")
-    print(f"  cantera       {ct.__version__}")
-    threads = {k: os.environ[k] for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
-                                          "MKL_NUM_THREADS") if k in os.environ}
-    print(f"  BLAS threads  {threads or 'library default'}")
-    print()
 
 
 # ----------------------------------------------------------------------------------------------
@@ -217,7 +203,7 @@ def main():
     ap.add_argument("--repeats", type=int, default=5, help="timed repeats per figure (median)")
     ap.add_argument("--quick", action="store_true", help="fewer chain sizes")
     args = ap.parse_args()
-    machine()
+    print_machine()
     section_train(args.repeats)
     section_cells(max(1, args.repeats // 2 + 1))
     section_cantera(args.repeats, args.quick)

@@ -2,8 +2,6 @@
 wall-clock guard for solves, so that a solver that never returns fails a test instead of hanging
 the suite."""
 import os
-import signal
-from contextlib import contextmanager
 
 import pytest
 from hypothesis import settings as hyp_settings
@@ -62,25 +60,14 @@ def catalyst_dict():
     return catalyst_table
 
 
-@contextmanager
-def _deadline(seconds):
-    def _raise(signum, frame):
-        raise TimeoutError(f"solve did not return within {seconds} s")
-    old = signal.signal(signal.SIGALRM, _raise)
-    signal.setitimer(signal.ITIMER_REAL, seconds)
-    try:
-        yield
-    finally:
-        signal.setitimer(signal.ITIMER_REAL, 0)
-        signal.signal(signal.SIGALRM, old)
-
-
 @pytest.fixture
 def deadline():
     """Context manager ``with deadline(20): ...`` raising TimeoutError after 20 s (Unix); 20x
     longer when the numpy reference kernel is the default (it is that much slower)."""
     from aftertreat import solver
+    from fuzz_cases import time_limit
 
     def guard(seconds):
-        return _deadline(seconds * (20 if solver.default_kernel() == "numpy" else 1))
+        return time_limit(seconds * (20 if solver.default_kernel() == "numpy" else 1),
+                          "solve did not return")
     return guard

@@ -769,13 +769,15 @@ def problem_kind(problem: str) -> str:
 # ------------------------------------------------------------------------------------------------
 
 @contextmanager
-def _time_limit(seconds):
+def time_limit(seconds, what="case did not finish"):
+    """Raise TimeoutError("<what> within <seconds> s") if the block runs longer (Unix; no
+    limit where SIGALRM is missing or ``seconds`` is falsy). Also the tests' hang guard."""
     if not seconds or not hasattr(signal, "SIGALRM"):
         yield
         return
 
     def _raise(signum, frame):
-        raise TimeoutError(f"case did not finish within {seconds} s")
+        raise TimeoutError(f"{what} within {seconds} s")
     old = signal.signal(signal.SIGALRM, _raise)
     signal.setitimer(signal.ITIMER_REAL, seconds)
     try:
@@ -868,7 +870,7 @@ def run_one(text: str, label: str, *, warm_vs_cold: bool = True,
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            with _time_limit(timeout_s):
+            with time_limit(timeout_s):
                 with tempfile.TemporaryDirectory(prefix="aftertreat-fuzz-") as d:
                     case = load_case_text(text, label.replace(" ", "_"), d)
                 rec["title"] = case.title

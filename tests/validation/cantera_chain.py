@@ -232,12 +232,17 @@ reactions:
 """
 
 
-def load(case: KineticLimitCase):
-    """One-time setup: the gas ``Solution`` and surface ``Interface`` of ``case``."""
-    text = mechanism_yaml(case)
+def phases(text: str):
+    """The gas ``Solution`` and surface ``Interface`` of a mechanism in the YAML form of
+    :func:`mechanism_yaml`."""
     gas = ct.Solution(yaml=text, name="gas")
     surf = ct.Interface(yaml=text, name="scr_surface", adjacent=[gas])
     return gas, surf
+
+
+def load(case: KineticLimitCase):
+    """One-time setup: the gas ``Solution`` and surface ``Interface`` of ``case``."""
+    return phases(mechanism_yaml(case))
 
 
 @dataclass

@@ -204,10 +204,7 @@ def mechanism_yaml(case: FlowCase) -> str:
 
 def load(case: FlowCase):
     """One-time setup: the gas ``Solution`` and surface ``Interface`` of ``case``."""
-    text = mechanism_yaml(case)
-    gas = ct.Solution(yaml=text, name="gas")
-    surf = ct.Interface(yaml=text, name="scr_surface", adjacent=[gas])
-    return gas, surf
+    return cc.phases(mechanism_yaml(case))
 
 
 @dataclass
