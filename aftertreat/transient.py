@@ -79,13 +79,21 @@ class TransientSettings:
     Euler) or ``"euler"`` (implicit Euler throughout). ``conduction`` switches
     axial heat conduction in the brick solid on, with ``k_solid_W_mK`` the solid's
     conductivity (cordierite and titania about 1-3 W/(m K), from memory).
+
+    Defaults, measured (``docs/model.md``, section 7): ``atol_coverage = 2e-4`` holds the NH3
+    release peak of ``tests/validation/test_transient_reference.py`` within 0.3 % in value and
+    time (5e-4: time -1.8 %). ``atol_T_K = 0.5``: the solid-temperature estimate mostly sees
+    the kinks of the piecewise-linear inlet at each sample, not a solution error; on the
+    harbour trace, 0.5 K against 0.02 K moves outlet NO, NO2, NH3 and N2O by at most 2e-4 of
+    their largest values and the outlet temperature by 3e-4 K, with 4x fewer sub-steps and
+    10x fewer Jacobians (the reference peak is unchanged: +0.27 %, -0.27 %).
     """
     tol: float = 1e-8
     tol_accept: float = 1e-7
     error_control: bool = True
     method: str = "bdf2"
     atol_coverage: float = 2e-4
-    atol_T_K: float = 0.02
+    atol_T_K: float = 0.5
     rtol: float = 0.0
     dt_min_s: float = 1e-3
     max_substeps: int = 2000

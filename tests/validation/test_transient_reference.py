@@ -322,7 +322,7 @@ def test_trace_steps_match_reference(reference, deadline):
     1e-8): peak value and time within 2 %. Run over the first 60 s, which hold the peak (a run
     is causal: later samples do not change it). One fixed implicit-Euler step per second is
     first order in time and misses the release (measured: peak value -4.5 %, peak time
-    +4.3 %); with the sub-steps (BDF2): +0.2 % and -0.3 %, 110 sub-steps for the 60 samples."""
+    +4.3 %); with the sub-steps (BDF2): +0.27 % and -0.27 %, 89 sub-steps for the 60 samples."""
     with deadline(60):
         res = _aftertreat(TRACE_DT_S, WINDOW_S, TransientSettings())
     assert res.all_converged
