@@ -841,10 +841,13 @@ def _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R):
 
 @_jit
 def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi, floor,
-            W, stat, tol, max_it, max_jac):
+            W, stat, tol, max_it, max_jac, have_R):
     """Damped Newton on cell ``j`` in place on ``x`` until the residual is below ``tol``.
     ``stat`` receives [residual, stalled at round-off, jacobians, evaluations, factors valid]
-    (the counts are added to)."""
+    (the counts are added to). ``have_R``: 1 if ``W.R`` already holds the residual of ``x``
+    (the march evaluated its start; ``x`` inside the bounds), 2 if the rates and extents in
+    ``W`` are that evaluation's too, else 0. Returns whether the residual last evaluated
+    (rates and extents in ``W``) is that of the final ``x``."""
     fd, tau0, tau_b, max_dT = cfg[7], cfg[8], cfg[9], cfg[10]
     chord = cfg[4] > 0.0
     c_acc, c_keep = cfg[5], cfg[6]
@@ -855,11 +858,16 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
     xt = W.xt
     dx = W.dx
     Jm = W.J
-    _project(x, bnd_lo, bnd_hi)                     # the start inside the bounds
     stalled = False
-    residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R)
+    at_x = True
+    if have_R > 0:
+        nres = 0
+        at_x = have_R == 2
+    else:
+        _project(x, bnd_lo, bnd_hi)                 # the start inside the bounds
+        residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, R)
+        nres = 1
     rn = norm(R)
-    nres = 1
     njac = 0
     fresh = False
     tau = 0.0
@@ -873,6 +881,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
                 break
             jacobian(st, fl, j, x, Fin, Tgin, xo, inv_dt, fd, W, Jm)
             nres += nv
+            at_x = False
             if tau > 0.0:
                 Jm[IT_S, IT_S] -= 1.0 / tau
                 for n in range(st.nnode):
@@ -914,6 +923,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
             _trial(x, dx, a, bnd_lo, bnd_hi, xt)
             residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
             nres += 1
+            at_x = False
             rt = norm(Rt)
             if rt == rt and rt <= c_acc * rn:
                 if rt > c_keep * rn:
@@ -922,6 +932,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
                     x[i] = xt[i]
                     R[i] = Rt[i]
                 rn = rt
+                at_x = True
                 continue
             if rn < 10.0 * tol:
                 break
@@ -937,6 +948,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
             _trial(x, dx, aT, bnd_lo, bnd_hi, xt)
             residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
             nres += 1
+            at_x = False
             rt = norm(Rt)
             if rt == rt and (rt < (1.0 - 1e-4 * a) * rn):
                 ok = True
@@ -944,6 +956,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
             _trial(x, dx, a, bnd_lo, bnd_hi, xt)
             residual(st, fl, j, xt, Fin, Tgin, xo, inv_dt, W, Rt)
             nres += 1
+            at_x = False
             rt = norm(Rt)
             if rt == rt and (rt < (1.0 - 1e-4 * a) * rn or tau > 0.0):
                 ok = True
@@ -959,6 +972,7 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
                 x[i] = xt[i]
                 R[i] = Rt[i]
             rn = rt
+            at_x = True
             continue
         have_fac = False
         if rn < tol:
@@ -971,16 +985,17 @@ def _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, 
     stat[2] += njac
     stat[3] += nres
     stat[4] = 1.0 if have_fac else 0.0
+    return at_x
 
 
 @_jit
 def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi,
-               floor, W, out):
+               floor, W, out, have_R):
     """Solve cell ``j`` in place on ``x`` (twin of :func:`aftertreat.kernel_numpy.solve_cell`):
     damped Newton, and if it fails, continuation in the reaction rates from a nearly
     unreacting cell. ``ff``/``fi`` hold the chord factors (valid if ``have_fac``) and receive
     any new ones. ``out`` = [residual, converged, jacobians, residual evaluations, factors
-    valid]."""
+    valid]. ``have_R``: what ``W`` holds of the start ``x`` (see :func:`_newton`)."""
     tol, tol_acc = cfg[0], cfg[1]
     max_it, max_jac = int(cfg[2]), int(cfg[3])
     nv = x.shape[0]
@@ -992,9 +1007,11 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
     for i in range(nv):
         x0[i] = x[i]
     W.lam[0] = 1.0
-    _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi, floor,
-            W, st_, tol, max_it, max_jac)
+    at_x = _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_lo, bnd_hi,
+                   floor, W, st_, tol, max_it, max_jac, have_R)
     ok = st_[0] < tol_acc or st_[1] > 0.0
+    if not ok:
+        at_x = False
     if not ok and cfg[11] > 0.0:
         # continuation: all rates x lam, lam from 1e-3 to 1 in growing steps (each Newton
         # solve starts from the last converged one; a failed step is redone shorter)
@@ -1008,7 +1025,8 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
         for _k in range(60):
             W.lam[0] = lam
             _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, False, cfg, bnd_lo, bnd_hi,
-                    floor, W, st_, tol if lam == 1.0 else 1e3 * tol_acc, max_it, max_jac)
+                    floor, W, st_, tol if lam == 1.0 else 1e3 * tol_acc, max_it, max_jac,
+                    0)
             good = st_[0] < (tol_acc if lam == 1.0 else 1e3 * tol_acc) or st_[1] > 0.0
             if good:
                 if lam == 1.0:
@@ -1037,16 +1055,19 @@ def solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have_fac, cfg, bnd_l
                 x[IT_G] = x0[IT_G] + 0.5 * HOT_STEP_K * k
                 _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
                 _newton(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, False, cfg, bnd_lo,
-                        bnd_hi, floor, W, st_, tol, max_it, max_jac)
+                        bnd_hi, floor, W, st_, tol, max_it, max_jac, 0)
                 if st_[0] < tol_acc or (st_[1] > 0.0 and st_[0] < STALL_TOL):
                     break
-    # leave the rates and extents of the final state in W
-    residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
+    # leave the rates and extents of the final state in W (unless the last evaluation was it)
+    extra = 0
+    if not at_x:
+        residual(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
+        extra = 1
     rn = norm(W.R)
     out[0] = rn
     out[1] = 1.0 if (rn < tol_acc or (st_[1] > 0.0 and rn < STALL_TOL)) else 0.0
     out[2] = st_[2]
-    out[3] = st_[3] + 1
+    out[3] = st_[3] + extra
     out[4] = st_[4]
 
 
@@ -1076,6 +1097,7 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
         xo = x_old[j]
         best = 1e300
         cnt = 0
+        last = False                               # the last evaluation is the best start
         if has_guess:
             for i in range(nv):
                 cand[i] = guess[j, i]
@@ -1085,8 +1107,10 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
             r = norm(W.R)
             if r == r:
                 best = r
+                last = True
                 for i in range(nv):
                     x[i] = cand[i]
+                    W.Rp[i] = W.R[i]
         if j > 1:
             # the two upstream cells extrapolated (geometrically where both are positive: the
             # profiles are close to exponential), projected into the bounds
@@ -1102,21 +1126,31 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
             residual(st, fl, j, cand, Fin, Tgin, xo, inv_dt, W, W.R)
             cnt += 1
             r = norm(W.R)
-            if r == r and r < best:
+            last = r == r and r < best
+            if last:
                 best = r
                 for i in range(nv):
                     x[i] = cand[i]
+                    W.Rp[i] = W.R[i]
         if j > 0 and best > START_GOOD:
             # the upstream cell itself, unless a start above is already good (the extrapolated
             # one nearly always is: it saves one residual per cell)
             residual(st, fl, j, X[j - 1], Fin, Tgin, xo, inv_dt, W, W.R)
             cnt += 1
             r = norm(W.R)
-            if r == r and r < best:
+            last = r == r and r < best
+            if last:
                 best = r
                 for i in range(nv):
                     x[i] = X[j - 1, i]
-        if best == 1e300:
+                    W.Rp[i] = W.R[i]
+        have_R = 0 if best == 1e300 else (2 if last else 1)
+        if have_R > 0:
+            # the chosen start's residual (the march's starts are inside the bounds already,
+            # except the upstream cell's state, which is a converged one)
+            for i in range(nv):
+                W.R[i] = W.Rp[i]
+        else:
             for i in range(nv):
                 x[i] = X[j, i]                     # the raw inlet state
             _balance_coverage(st, fl, j, x, Fin, Tgin, xo, inv_dt, W, W.R)
@@ -1132,7 +1166,7 @@ def march(st, fl, X, guess, has_guess, x_old, inv_dt, FF, FI, fac_ok, cfg, conv,
                 fi[i] = FI[j, i]
             have = True
         solve_cell(st, fl, j, x, Fin, Tgin, xo, inv_dt, ff, fi, have, cfg, lower, upper,
-                   floor, W, out)
+                   floor, W, out, have_R)
         have = out[4] > 0.0
         if have:
             for i in range(nfl):

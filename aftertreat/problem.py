@@ -521,19 +521,19 @@ class BrickProblem:
             notes.append("Tronconi-Forzatti holds for square channels; Hawthorn (1974) used "
                          "for this slit geometry")
         z = self.z_edges
-        Sh = transport.sherwood_cell_mean(method, z[:, None] * D[None, :] / (u * st.d_h ** 2),
-                                          shape=sub.shape)
-        Nu = transport.sherwood_cell_mean(method, z * alpha / (u * st.d_h ** 2), shape=sub.shape)
+        # Sherwood (film species) and Nusselt (heat) in one evaluation of the correlation
+        both = transport.sherwood_cell_mean(
+            method, z[:, None] * np.append(D, alpha)[None, :] / (u * st.d_h ** 2),
+            shape=sub.shape)
+        Sh, Nu = both[:, :-1], both[:, -1]
         ctot = p / (R_GAS * T)
         km = Sh[0] * D / st.d_h if st.film else np.full(st.nf, 1e12)
-        D_mol = gas.diffusivity(T, p)
         scale = np.empty((st.nnode, st.nf))
         if st.resolved:
-            half = np.empty((st.nnode, st.nf))
-            for j in range(st.nnode):
-                k = st.node_layer[j]
-                De = b.catalysts[k].pores.effective_diffusivity(D_mol, T)[st.film_idx]
-                half[j] = st.node_dx[j] / (2.0 * De)
+            D_mol = gas.diffusivity(T, p)
+            De = np.array([c.pores.effective_diffusivity(D_mol, T)[st.film_idx]
+                           for c in b.catalysts])                       # [layers, nf]
+            half = st.node_dx[:, None] / (2.0 * De[st.node_layer])
             scale[0] = 1.0 / (1.0 / km + half[0])
             if st.nnode > 1:
                 scale[1:] = 1.0 / (half[:-1] + half[1:])

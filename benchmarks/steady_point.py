@@ -93,6 +93,8 @@ def section_train(repeats):
     print(f"   cold start, neighbour point   {t_cold_next * 1e3:8.1f} ms   {status(cold_next)}")
     print(f"   warm start, neighbour point   {t_warm_next * 1e3:8.1f} ms   {status(w2)}")
     print("   (neighbour: inlet +10 K and +5 % mass flow, warm-started from the first solution)")
+    print(f"   targets (solver-core issue): cold <= 5 ms ({t_cold * 1e3 / 5:.1f}x it), warm from a "
+          f"neighbour <= 1 ms ({t_warm_next * 1e3:.1f}x it)")
     out = sol.outlet
     print(f"   outlet: NO {out.ppm('NO'):.2f} ppm, NO2 {out.ppm('NO2'):.2f}, NH3 {out.ppm('NH3'):.3f}, "
           f"N2O {out.ppm('N2O'):.2f}; NOx conversion {sol.nox_conversion() * 100:.2f} %; "
