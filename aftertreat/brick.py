@@ -55,7 +55,7 @@ class Brick:
     cells : finite volumes along the brick.
     grid : spacing of the cells, one of :data:`GRIDS`.
 
-    The default resolution (80 graded cells, 24 nodes per resolved layer) keeps outlet NO, NO2,
+    The default resolution (80 graded cells, 32 nodes per resolved layer) keeps outlet NO, NO2,
     NH3 and N2O within 0.1 % of a grid-converged solution on the demo cases and on a seeded
     random design space (``tests/validation/test_grid.py``, ``docs/model.md``).
     sherwood : film mass/heat-transfer correlation, a method of :func:`aftertreat.transport.sherwood`.
@@ -72,7 +72,7 @@ class Brick:
     diameter: float
     activity: float = 1.0
     washcoat: str | None = None
-    nodes_per_layer: int = 24
+    nodes_per_layer: int = 32
     cells: int = 80
     grid: str = "graded"
     sherwood: str = "tronconi_forzatti_1992"

@@ -58,9 +58,10 @@ __all__ = ["StateLayout", "BrickProblem", "BoundProblem", "KernelStatic", "Kerne
 NSP = len(SPECIES)
 
 #: Ratio of the deepest to the shallowest node of a resolved layer: nodes grow geometrically
-#: from the layer's gas side inward, where fast reactions have their steep profiles. With 24
-#: nodes this reproduces the slab effectiveness factor tanh(phi)/phi within 0.35 % up to
-#: phi = 20 (0.2 % at phi = 3; measured, ``tests/validation/test_plug_flow.py``).
+#: from the layer's gas side inward, where fast reactions have their steep profiles. With 32
+#: nodes (the default) this reproduces the slab effectiveness factor tanh(phi)/phi within
+#: 0.2 % up to phi = 20 (24 nodes: 0.35 %; measured, ``tests/validation/test_grid.py``).
+#: Clustering at both faces of a layer was tried and is worse on the demo cases.
 NODE_SPREAD = 50.0
 
 
