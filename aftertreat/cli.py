@@ -245,6 +245,18 @@ def _print_size(res, safety: str, report: str | None) -> None:
         t.add_row(b.name, b.role, "+".join(c.key for c in b.catalysts), f"{b.length * 1e3:.0f}",
                   f"{b.diameter * 1e3:.0f}", f"{b.volume * 1e3:.0f}")
     con.print(t)
+    if res.continuous:
+        total = sum(r["volume_L"] for r in res.continuous)
+        con.print("continuous optimum (before rounding up to buildable lengths): "
+                  + ", ".join(f"{r['name']} {r['length_mm']:.0f} mm" for r in res.continuous)
+                  + f"; {total:.0f} L")
+    for rule in res.build_rules:
+        con.print(f"buildable lengths, {rule}")
+    if res.diameter_reason:
+        con.print(f"diameter: {res.diameter_reason}")
+    if case.dosing["method"] != "none":
+        con.print("ANR per mode (NH3/NOx dosed): " + ", ".join(
+            f"{m.name} {m.anr:.2f}" for m in res.run.modes))
     c = res.run.cycle
     dp = max(m.solution.dp_Pa for m in res.run.modes) / 1e3
     con.print(f"total {res.train.volume * 1e3:.0f} L; cycle NOx {c['NOx_g_kWh']:.3f} g/kWh, "

@@ -46,6 +46,10 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
     choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
     ANR_excess = 0.05                  # at most the [dosing] ANR of the case
+    [sizing.build.extruded]            # buildable brick lengths per substrate kind (extruded,
+    step_mm = 50                       # plate, coated): whole steps within [min_mm, max_mm];
+    min_mm = 200                       # defaults in aftertreat/data/build_rules.toml
+    max_mm = 1300
 """
 from __future__ import annotations
 
@@ -54,6 +58,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .build import parse_build_rules
 from .case import _unknown, apply_set, parse_brick, read_toml
 from .transient_run import parse_transient
 from .errors import InputError, did_you_mean
@@ -75,7 +80,8 @@ _DOSING = {"method", "ANR", "urea_mass_fraction"}
 _LIMITS = {"sets", "gwp", "custom"}
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
            "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
-           "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter"}
+           "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter",
+           "build"}
 
 
 @dataclass
@@ -318,6 +324,7 @@ def _sizing(data, file) -> dict:
             raise InputError("expected a table of catalyst key = cost per litre >= 0",
                              key="sizing.cost_per_L", value=c, file=file)
         out["cost_per_L"] = {k: float(v) for k, v in c.items()}
+    out["build"] = parse_build_rules(s.get("build"), file)
     return out
 
 

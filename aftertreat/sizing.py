@@ -22,6 +22,14 @@ evaluations once bracketed (:func:`_smallest`). The search runs on a coarse grid
 (``COARSE_GRID``); its answer is then confirmed on the case's own grid and grown there if it
 does not comply, so it is the smallest to within the coarse grid's error (1-2 %).
 
+Buildable answer: the search keeps every sized brick within its substrate kind's buildable
+lengths (:mod:`aftertreat.build`: whole steps within [min, max] per brick), and below the
+length at which its pressure drop would reach 40 % of the inlet pressure (beyond that the model
+refuses a brick as implausible, so such a candidate is out of bounds, not a user error). The
+continuous optimum is then rounded up brick by brick to whole steps; while the rounded train
+misses a limit with its margin, the shortest brick of the failing section grows by one step.
+The answer is the rounded train; the continuous optimum is reported beside it.
+
 Each design is evaluated with :func:`aftertreat.evaluate.run_case`, warm-started from the
 nearest design already solved (its states, by position along each brick, and its Jacobians).
 The diameter is the case's, or set by a face-velocity or GHSV rule at the largest exhaust flow
@@ -51,6 +59,9 @@ _ACCEPT = 1.0 - 1e-5
 #: (cells, washcoat nodes per layer) of the coarse search grid; the answer is polished on the
 #: case's own grid.
 COARSE_GRID = (8, 4)
+#: Largest pressure drop of one brick, as a fraction of its inlet pressure, that the search
+#: may reach (the model refuses a brick above half the inlet pressure as implausible).
+_DP_PLAUSIBLE = 0.4
 
 
 @dataclass
@@ -69,11 +80,12 @@ class SizingResult:
     train_solves: int = 0
     seconds: float = 0.0
     cost: float | None = None
+    continuous: list[dict] = field(default_factory=list)    # brick rows of the continuous optimum
+    build_rules: list[str] = field(default_factory=list)    # the rules applied, in words
+    diameter_reason: str = ""
 
     def brick_rows(self) -> list[dict]:
-        return [{"name": b.name, "role": b.role, "volume_L": b.volume * 1e3,
-                 "length_mm": b.length * 1e3, "diameter_mm": b.diameter * 1e3}
-                for b in self.train.bricks]
+        return _brick_rows(self.train)
 
     def to_json(self) -> dict:
         """The ``aftertreat.size/1`` object."""
@@ -82,6 +94,9 @@ class SizingResult:
                 "binding": self.binding, "feasible": self.feasible, "problems": self.problems,
                 "suggestions": self.suggestions, "margins": self.margins,
                 "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
+                "continuous_optimum": self.continuous, "build_rules": self.build_rules,
+                "diameter_reason": self.diameter_reason,
+                "ANR_per_mode": {m.name: float(m.anr) for m in self.run.modes},
                 "curves": self.curves, "evaluations": self.evaluations,
                 "train_solves": self.train_solves, "solve_s": self.seconds,
                 "run": self.run.to_json()}
@@ -89,6 +104,12 @@ class SizingResult:
     def curve_table(self):
         import pandas as pd
         return pd.DataFrame(self.curves).sort_values(["SCR_length_mm", "ASC_length_mm"])
+
+
+def _brick_rows(train) -> list[dict]:
+    return [{"name": b.name, "role": b.role, "volume_L": b.volume * 1e3,
+             "length_mm": b.length * 1e3, "diameter_mm": b.diameter * 1e3}
+            for b in train.bricks]
 
 
 def _design_value(res, r) -> float:
@@ -135,6 +156,8 @@ class _Designs:
         self.L_asc0 = sum(b[i].length for i in self.asc)
         self.cache: dict[tuple[float, float], object] = {}
         self.solves = 0
+        self.extra = 0                  # explicit trains evaluated (:meth:`run`)
+        self.limits: dict[int, tuple[float, float]] = {}   # brick -> (shortest, longest) [m]
         self.seed = None                # warm-start guesses for the first design (per mode)
 
     def train(self, L_scr: float, L_asc: float) -> Train:
@@ -146,12 +169,65 @@ class _Designs:
                 L = L_scr * x.length / self.L_scr0
             elif i in self.asc and self.L_asc0 > 0:
                 L = L_asc * x.length / self.L_asc0
+            if i in self.limits:                 # each brick within its buildable range
+                L = min(max(L, self.limits[i][0]), self.limits[i][1])
             kw = {}
             if self.grid is not None:        # coarse search grid
                 kw = {"cells": min(x.cells, self.grid[0]),
                       "nodes_per_layer": min(x.nodes_per_layer, self.grid[1])}
             new.append(dataclasses.replace(x, length=L, diameter=self.D, **kw))
         return Train(new)
+
+    def run(self, train: Train, like=None):
+        """Evaluate an explicit train (same bricks and grids as :meth:`train`), warm-started
+        from the result ``like``."""
+        guesses = [m.solution for m in like.modes] if like is not None and like.converged \
+            else None
+        res = run_case(self.case, train=train, guesses=guesses, inlets=self.inlets,
+                       settings=self.settings)
+        self.solves += len(res.modes)
+        self.extra += 1
+        return res
+
+    def brick_limits(self, idx, rules, fraction: float = _DP_PLAUSIBLE) -> dict:
+        """(shortest, longest) length [m] of each brick ``idx``: its substrate kind's buildable
+        range (``rules``), the longest also kept below the length at which the brick would lose
+        ``fraction`` of a mode's inlet pressure (at the inlet temperature, every mode; above
+        half of it the model refuses a brick as implausible, :func:`aftertreat.reactor.package`);
+        and the name of the bound that sets the longest."""
+        from .gas import GasProperties
+        from .transport import pressure_drop
+        b = self.case.train.bricks
+        gases = [(m[3], GasProperties.for_stream(m[3].F)) for m in self.inlets]
+        out = {}
+        for i in idx:
+            rule = rules[b[i].substrate.kind]
+            lo, hi, why = rule.shortest_m, rule.longest_m, f"sizing.build.{rule.kind}.max_mm"
+            x = dataclasses.replace(b[i], diameter=self.D)
+            sub = x.substrate
+            for inl, gas in gases:
+                rho, mu = float(gas.density(inl.T, inl.p)), float(gas.viscosity(inl.T))
+
+                def dp(L):
+                    return pressure_drop(sub.d_h, sub.ofa, sub.shape, L, inl.mass_flow,
+                                         x.frontal_area, rho, mu,
+                                         apparent=x.apparent_friction).total_Pa
+
+                if dp(hi) <= fraction * inl.p:
+                    continue
+                a, c = 1e-5, hi                      # bisection in log L: dp rises with L
+                for _ in range(40):
+                    mid = math.sqrt(a * c)
+                    a, c = (mid, c) if dp(mid) <= fraction * inl.p else (a, mid)
+                hi, why = a, "pressure drop (40 % of the inlet pressure)"
+            out[i] = (lo, hi, why)
+        return out
+
+    def section_length(self, idx, scale: float, L0: float) -> float:
+        """Total length [m] of the bricks ``idx`` at the section scale ``scale``."""
+        b = self.case.train.bricks
+        return sum(min(max(scale * b[i].length / L0, self.limits[i][0]), self.limits[i][1])
+                   for i in idx)
 
     def __call__(self, L_scr: float, L_asc: float):
         key = (round(L_scr, 9), round(L_asc, 9))
@@ -397,13 +473,22 @@ def _size_with_diameter(case, progress, curves: bool = True) -> SizingResult:
     """Diameter rule, then the lengths (see :func:`size_case`)."""
     sz = case.sizing
     D = case.train.bricks[0].diameter
+    why = f"the case's diameter ({D * 1e3:.0f} mm)"
     if sz.get("face_velocity_m_s"):
         D = _face_velocity_diameter(case, mode_inlets(case), sz["face_velocity_m_s"])
+        why = (f"{D * 1e3:.0f} mm for a face velocity of {sz['face_velocity_m_s']:g} m/s at the "
+               "largest exhaust flow of the cycle (sizing.face_velocity_m_s; the case's "
+               f"{case.train.bricks[0].diameter * 1e3:.0f} mm is not used)")
     elif sz.get("ghsv_per_h"):
         D = ghsv_diameter(mode_inlets(case), sz["ghsv_per_h"], sz.get("length_to_diameter", 1.0))
+        why = (f"{D * 1e3:.0f} mm from the design GHSV {sz['ghsv_per_h']:g} 1/h at the largest "
+               f"flow with L/D {sz.get('length_to_diameter', 1.0):g} (sizing.ghsv_per_h)")
     D_max = sz["max_diameter_mm"] / 1e3 if sz.get("max_diameter_mm") else math.inf
+    if D > D_max:
+        why += f", capped at sizing.max_diameter_mm = {D_max * 1e3:.0f} mm"
     D = min(D, D_max)
     res = _size_at(case, D, progress, curves)
+    D0 = D
     if sz.get("diameter_from_dp") and sz.get("dp_max_kPa"):
         budget = sz["dp_max_kPa"]
         for _ in range(3):
@@ -414,6 +499,11 @@ def _size_with_diameter(case, progress, curves: bool = True) -> SizingResult:
             if progress:
                 progress(f"diameter {D * 1e3:.0f} mm for the back-pressure budget")
             res = _size_at(case, D, progress, curves)
+        if D > D0:
+            why += (f"; raised from {D0 * 1e3:.0f} to {D * 1e3:.0f} mm for the back-pressure "
+                    f"budget {budget:g} kPa (sizing.diameter_from_dp"
+                    + (", at sizing.max_diameter_mm)" if D >= D_max else ")"))
+    res.diameter_reason = why
     return res
 
 
@@ -424,21 +514,64 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     m = sz["design_margin"]
     designs = _Designs(case, D)
     has_asc = bool(designs.asc)
+    # the search runs on a coarse grid (see the module docstring)
+    coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets,
+                      settings=SolverSettings(tol=1e-9, tol_accept=1e-8))
     fixed = sum(b.length for i, b in enumerate(case.train.bricks)
                 if i not in designs.scr and i not in designs.asc)
     max_total = sz.get("max_length_mm")
-    scr_hi = sz["scr_length_max_mm"] / 1e3
-    asc_hi = sz["asc_length_max_mm"] / 1e3
-    if max_total:
-        scr_hi = min(scr_hi, max_total / 1e3 - fixed - (designs.L_asc0 if has_asc else 0.0))
-    scr_lo, asc_lo = 0.005, 0.005
-    if scr_hi <= scr_lo:
-        raise InputError("the space envelope leaves no room for the SCR", key="sizing.max_length_mm",
-                         value=max_total, file=case.file)
+    rules = sz["build"]
+
+    reported = set()                          # limit rows already named in a problem
+    dp_capped = []                            # bricks whose longest length the dp bound sets
+
+    def bounds(section, idx, L0, key_max, room=math.inf, room_key=""):
+        """(shortest, longest) section scale: every brick ``idx`` goes from its shortest to its
+        longest buildable length (:meth:`_Designs.brick_limits`) as the scale grows, and the
+        section's total length stays within ``key_max`` and the room left in the envelope."""
+        lim = designs.brick_limits(idx, rules)
+        if any(lo > hi for lo, hi, _ in lim.values()):
+            i = next(i for i, (lo, hi, _) in lim.items() if lo > hi)
+            raise InputError(f"brick '{case.train.bricks[i].name}' cannot be built: its "
+                             f"shortest buildable length {lim[i][0] * 1e3:.0f} mm would lose "
+                             "over 40 % of the inlet pressure", key=f"brick '{case.train.bricks[i].name}'",
+                             value=f"diameter {designs.D * 1e3:.0f} mm", file=case.file)
+        for d in (designs, coarse):
+            d.limits.update({i: (lo, hi) for i, (lo, hi, _) in lim.items()})
+        dp_capped.extend(f"brick '{case.train.bricks[i].name}' at {hi * 1e3:.0f} mm"
+                         for i, (lo, hi, why) in lim.items() if why.startswith("pressure"))
+        b = case.train.bricks
+        lo = min(lim[i][0] * L0 / b[i].length for i in idx)
+        hi = max(lim[i][1] * L0 / b[i].length for i in idx)
+        cap, key, value = min((sz[key_max] / 1e3, f"sizing.{key_max}", sz[key_max]),
+                              (room, room_key, max_total), key=lambda t: t[0])
+        shortest = designs.section_length(idx, lo, L0)
+        if shortest > cap * (1 + 1e-9):
+            raise InputError(f"no buildable {section} fits: its shortest bricks add up to "
+                             f"{shortest * 1e3:.0f} mm, this bound allows "
+                             f"{max(cap, 0.0) * 1e3:.0f} mm", key=key, value=value,
+                             file=case.file)
+        if designs.section_length(idx, hi, L0) > cap:
+            a, c = lo, hi                            # the largest scale within the cap
+            for _ in range(60):
+                mid = 0.5 * (a + c)
+                a, c = (mid, c) if designs.section_length(idx, mid, L0) <= cap else (a, mid)
+            hi = a
+        return lo, hi
+
+    asc_lo = asc_hi = 0.0
+    asc_min = 0.0
+    if has_asc:
+        asc_lo, asc_hi = bounds("slip catalyst", designs.asc, designs.L_asc0,
+                                "asc_length_max_mm")
+        asc_min = designs.section_length(designs.asc, asc_lo, designs.L_asc0)
+    room = (max_total / 1e3 - fixed - asc_min) if max_total else math.inf
+    scr_lo, scr_hi = bounds("SCR", designs.scr, designs.L_scr0, "scr_length_max_mm",
+                            room, "sizing.max_length_mm")
     # the SCR carries NOx, and N2O and greenhouse limits too: a longer SCR uses more NH3, so less
     # of it reaches the slip catalyst to be oxidised (partly to N2O)
     nox = ("NOx", "N2O", "GHG") if has_asc else ("NOx", "NH3", "N2O", "GHG")
-    problems, suggestions = [], []
+    problems, suggestions, binding = [], [], []
     feasible = True
     slopes = {"scr": None, "asc": None}       # per limit row, carried between passes
 
@@ -463,14 +596,21 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             res = designs(L_scr, L_asc)
             problems.append(f"with {section} these limits still fail (best values reachable): "
                             + "; ".join(_failing(res, quantities, m)))
+            reported.update((r["name"], r.get("mode")) for r, q in _ratios(res, quantities, m)
+                            if q > 1.0)
             suggestions.extend(_suggest(res, quantities, m, case))
+            if dp_capped:
+                suggestions.append("a larger diameter: the pressure drop caps "
+                                   + ", ".join(dp_capped))
 
         for k in range(passes):
             step = first_step if k == 0 else 1.05   # later passes start next to the answer
             L_scr, ok, _, slopes["scr"] = _smallest(f_scr, L_scr, scr_lo, scr_hi, step=step,
                                                     slopes=slopes["scr"])
             if not ok:
-                cannot_meet(f"an SCR up to {scr_hi * 1e3:.0f} mm long", L_scr, L_asc, nox)
+                cannot_meet("an SCR up to "
+                            f"{designs.section_length(designs.scr, scr_hi, designs.L_scr0) * 1e3:.0f}"
+                            " mm long", L_scr, L_asc, nox)
                 break
             if not has_asc:
                 break
@@ -478,8 +618,9 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             L_asc, ok_a, _, slopes["asc"] = _smallest(f_asc, L_asc, asc_lo, asc_hi, step=step,
                                                       slopes=slopes["asc"])
             if not ok_a:
-                cannot_meet(f"a slip catalyst up to {asc_hi * 1e3:.0f} mm long", L_scr, L_asc,
-                            ("NH3",))
+                cannot_meet("a slip catalyst up to "
+                            f"{designs.section_length(designs.asc, asc_hi, designs.L_asc0) * 1e3:.0f}"
+                            " mm long", L_scr, L_asc, ("NH3",))
                 break
             if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT \
                     and abs(L_asc / max(L_prev, 1e-9) - 1) < 4 * SIZING_TOL:
@@ -488,8 +629,6 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
 
     # search on a coarse grid (about 1-2 % from the case's grid), then confirm on the case's grid:
     # the coarse answer is kept when it complies there, else grown until it does
-    coarse = _Designs(case, D, grid=COARSE_GRID, inlets=designs.inlets,
-                      settings=SolverSettings(tol=1e-9, tol_accept=1e-8))
     L_scr, L_asc = search(coarse, designs.L_scr0, designs.L_asc0, 2.0, 3)
     if feasible:    # seed the case's grid with the coarse states (bricks whose layout matches)
         designs.seed = _refine_guesses(coarse(L_scr, L_asc), designs.train(L_scr, L_asc))
@@ -502,10 +641,15 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                           slopes["asc"])
         if _worst(designs(L_scr, L_asc), nox, m) <= _ACCEPT:
             break
-    res = designs(L_scr, L_asc)
-    train = designs.train(L_scr, L_asc)
+    for name, L, lo in (("SCR", L_scr, scr_lo), ("slip catalyst", L_asc, asc_lo)):
+        if has_asc or name == "SCR":
+            if feasible and L <= lo * (1 + SIZING_TOL):
+                binding.append(f"shortest buildable {name} bricks (sizing.build)")
+    cont_res = designs(L_scr, L_asc)
+    continuous = designs.train(L_scr, L_asc)
+    train, res = _round_up(designs, continuous, cont_res, rules, nox, m, has_asc)
     # every other limit, the back-pressure budget and the envelope, on the result
-    binding, margins = [], []
+    margins = []
     for r in res.limits:
         if r.get("limit") is None:
             continue
@@ -517,7 +661,10 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                         if r["limit"] > 0 else None, "pass_with_design_margin": ratio <= 1.0})
         if ratio > 1.0:
             feasible = False
-            problems.append(f"{r['name']}" + (f" at mode {r['mode']}" if r.get("mode") else "")
+            if (r["name"], r.get("mode")) in reported:
+                continue
+            problems.append(f"{r['name']}" + (f" at mode {r['mode']}" if r.get("mode") and
+                                              str(r["mode"]) not in r["name"] else "")
                             + f": {_design_value(res, r):.3g} > {lim_m:.3g} {r['unit']} "
                             "(limit with margin)")
             suggestions += _suggest(res, (r["quantity"],), m, case)
@@ -546,19 +693,64 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     if sz.get("cost_per_L"):
         cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(b.catalysts[0].key, 0.0)
                    for b in train.bricks)
+    used = sorted({b.substrate.kind for i, b in enumerate(case.train.bricks)
+                   if i in designs.scr or i in designs.asc})
     return SizingResult(case=case, feasible=feasible and res.converged, train=train, run=res,
-                        binding=sorted(set(binding)), curves=curves, problems=problems,
+                        binding=sorted(set(binding)), curves=curves,
+                        problems=list(dict.fromkeys(problems)),
                         suggestions=sorted(set(suggestions)), margins=margins,
-                        evaluations=len(designs.cache) + len(coarse.cache),
+                        evaluations=len(designs.cache) + len(coarse.cache) + designs.extra,
                         train_solves=designs.solves + coarse.solves,
-                        seconds=time.perf_counter() - t0, cost=cost)
+                        seconds=time.perf_counter() - t0, cost=cost,
+                        continuous=_brick_rows(continuous),
+                        build_rules=[rules[k].describe() for k in used])
+
+
+def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc):
+    """The continuous optimum ``continuous`` (result ``res``) rounded up to buildable lengths,
+    then grown one step at a time (the shortest brick of the section whose limits fail) until
+    it meets its limits with the margin, or no brick can grow. No brick goes past its longest
+    length (:meth:`_Designs.brick_limits`: a pressure-drop bound may cut the buildable range).
+    Returns (train, result)."""
+    b = list(continuous.bricks)
+    sized = designs.scr + designs.asc
+
+    def top(i):                                  # the longest buildable length allowed
+        return rules[b[i].substrate.kind].round_down(designs.limits[i][1])
+
+    for i in sized:
+        rule = rules[b[i].substrate.kind]
+        b[i] = dataclasses.replace(b[i], length=min(rule.round_up(b[i].length), top(i)))
+    if all(x.length == y.length for x, y in zip(b, continuous.bricks)):
+        return continuous, res
+    like = res
+    for _ in range(12):
+        train = Train(b)
+        res = designs.run(train, like=like)
+        like = res
+        groups = [(designs.scr, nox)] + ([(designs.asc, ("NH3",))] if has_asc else [])
+        failing = [idx for idx, q in groups if _worst(res, q, margin) > _ACCEPT]
+        if not failing:
+            break
+        grown = False
+        for idx in failing:
+            can = [i for i in idx if b[i].length < top(i) - 1e-9]
+            if can:
+                i = min(can, key=lambda k: b[k].length)
+                b[i] = dataclasses.replace(
+                    b[i], length=min(rules[b[i].substrate.kind].next_up(b[i].length), top(i)))
+                grown = True
+        if not grown:
+            break
+    return train, res
 
 
 def _failing(res, quantities, margin) -> list[str]:
     out = []
     for r, q in _ratios(res, quantities, margin):
         if q > 1.0:
-            where = f" at mode {r['mode']}" if r.get("mode") else ""
+            where = f" at mode {r['mode']}" if r.get("mode") and str(r["mode"]) not in \
+                r["name"] else ""
             out.append(f"{r['name']}{where}: {_design_value(res, r):.3g} {r['unit']} against "
                        f"{r['limit'] * (1.0 - margin):.3g} with the design margin")
     return out
@@ -574,6 +766,10 @@ def _suggest(res, quantities, margin, case) -> list[str]:
         if case.dosing["method"] == "none":
             out.append("NH3 dosing from the fuel tank where the engine's own NH3 falls short "
                        "of the NOx")
+        else:
+            cap = np.asarray(case.dosing["ANR"], dtype=float)
+            out.append(f"a higher ANR cap ([dosing] ANR, now {float(cap.max()):.2f} at most), "
+                       "where NH3 is what the NOx reduction lacks")
     if "NH3" in kinds:
         out += ["a lower ANR, so less NH3 reaches the slip catalyst",
                 "a longer slip catalyst or a more active oxidation layer"]
@@ -594,7 +790,9 @@ def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> lis
         sweeps = [s for s, on in (("SCR", same_asc), ("ASC", same_scr)) if on] or ["search"]
         c = res.cycle
         t = designs.train(Ls, La)
-        rows += [{"sweep": sweep, "SCR_length_mm": Ls * 1e3, "ASC_length_mm": La * 1e3,
+        scr_mm = sum(t.bricks[i].length for i in designs.scr) * 1e3
+        asc_mm = sum(t.bricks[i].length for i in designs.asc) * 1e3
+        rows += [{"sweep": sweep, "SCR_length_mm": scr_mm, "ASC_length_mm": asc_mm,
                   "SCR_volume_L": sum(b.volume for b in t.bricks if b.role == "SCR") * 1e3,
                   "ASC_volume_L": sum(b.volume for b in t.bricks if b.role != "SCR") * 1e3,
                   "total_volume_L": t.volume * 1e3, "NOx_g_kWh": c["NOx_g_kWh"],

@@ -3,7 +3,7 @@ the numpy reference. The kernel is the default of :mod:`aftertreat.solver` for t
 environment variable ``AFTERTREAT_KERNEL`` for any command the test starts.
 
 The numpy variants of the studies that take minutes on the reference kernel (the grid-
-convergence study, long transient references) are marked slow: `python3 -m pytest -m slow`
+convergence study, long transient references, sizing a demo case) are marked slow: `python3 -m pytest -m slow`
 runs them."""
 import pytest
 
@@ -11,6 +11,8 @@ from aftertreat import solver
 
 #: numpy-kernel variants kept out of the default run (minutes each on 2 cores)
 _SLOW_ON_NUMPY = ("test_grid.py", "test_transient_reference.py", "test_transient.py")
+#: single numpy-kernel tests kept out of the default run (name without the parameter)
+_SLOW_TESTS_ON_NUMPY = ("test_mixed_brick_lengths_stay_buildable",)   # ~3.5 min on numpy
 
 
 @pytest.fixture(autouse=True, params=["numba", "numpy"])
@@ -27,5 +29,6 @@ def pytest_collection_modifyitems(config, items):
     for item in items:
         cs = getattr(item, "callspec", None)
         if cs is not None and cs.params.get("kernel") == "numpy" \
-                and item.path.name in _SLOW_ON_NUMPY:
+                and (item.path.name in _SLOW_ON_NUMPY
+                     or item.originalname in _SLOW_TESTS_ON_NUMPY):
             item.add_marker(pytest.mark.slow)
