@@ -174,19 +174,28 @@ class Combustion:
 
 def combustion(power_kW: float, brake_efficiency: float, blend: FuelBlend, lambda_: float, *,
                T_K: float, p_Pa: float = 101325.0, intake_humidity_g_kg: float | None = None,
-               minor: dict | None = None) -> Combustion:
+               minor: dict | None = None, fuel_kW: float | None = None) -> Combustion:
     """Engine-out exhaust by atom balance (module docstring) and the fuel and air flows in.
 
     power_kW: brake power; brake_efficiency: P / (fuel LHV power) [-]; lambda_: air supplied /
     stoichiometric air [-]; intake_humidity_g_kg: g water per kg dry air (default: the NOx
     reference humidity 10.71 g/kg of fuels.toml); minor: wet ppm of NO, NO2, NH3 (unburned),
     N2O, H2 (unburned) in the exhaust; T_K, p_Pa: exhaust state (given, not computed).
+    fuel_kW: the fuel energy flow (LHV) [kW] instead of power / efficiency, for idle modes
+    (zero brake power, ``brake_efficiency`` unused).
     """
-    for key, v, ok in (("power_kW", power_kW, power_kW > 0),
-                       ("brake_efficiency", brake_efficiency, 0 < brake_efficiency < 1),
-                       ("lambda_", lambda_, lambda_ > 0)):
+    checks = [("lambda_", lambda_, lambda_ > 0, "expected a positive value")]
+    if fuel_kW is None:
+        checks += [("power_kW", power_kW, power_kW > 0,
+                    "expected a positive brake power (an idle mode needs its fuel flow)"),
+                   ("brake_efficiency", brake_efficiency, 0 < brake_efficiency < 1,
+                    "expected an efficiency within (0, 1)")]
+    else:
+        checks += [("fuel_kW", fuel_kW, fuel_kW > 0, "expected a positive fuel energy flow"),
+                   ("power_kW", power_kW, power_kW >= 0, "expected a brake power >= 0")]
+    for key, v, ok, why in checks:
         if not (np.isfinite(v) and ok):
-            raise InputError("expected a positive value (efficiency below 1)", key=key, value=v)
+            raise InputError(why, key=key, value=v)
     if intake_humidity_g_kg is None:
         intake_humidity_g_kg = float(fuel_data()["humidity"]["reference_g_kg"])
     if not (np.isfinite(intake_humidity_g_kg) and 0 <= intake_humidity_g_kg <= 500):
@@ -200,7 +209,7 @@ def combustion(power_kW: float, brake_efficiency: float, blend: FuelBlend, lambd
         if not (np.isfinite(v) and v >= 0):
             raise InputError("expected wet ppm >= 0", key=f"minor.{k}", value=v)
         y[INDEX[k]] = v * 1e-6
-    fuel_W = power_kW * 1e3 / brake_efficiency
+    fuel_W = power_kW * 1e3 / brake_efficiency if fuel_kW is None else fuel_kW * 1e3
     fuel_mol = {f: s * fuel_W / lhv_J_mol(f) for f, s in blend.energy_shares.items() if s > 0}
     inlet = np.zeros(len(SPECIES))
     inlet_atoms = np.zeros(len(ELEMENTS))

@@ -21,6 +21,8 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     method = "combustion"              # or "measured"
     brake_efficiency = [0.44, 0.45, 0.44, 0.41, 0.35]
     lambda = [2.0, 2.1, 2.3, 2.6, 3.0]
+    idle_fuel_pct = 5                  # idle (zero-power) modes: fuel energy flow, % of that
+                                       # at the highest-power mode (their efficiency unused)
     T_C = [390, 370, 355, 340, 320]
     p_kPa = 104
     NOx_ppm = [...]; NO2_fraction = 0.05; NH3_ppm = [...]; N2O_ppm = [...]; H2_ppm = 0
@@ -74,7 +76,13 @@ _FUEL = {"NH3", "H2", "diesel", "natural_gas", "cracked_H2"}
 _CYCLE = {"iso8178", "mode"}
 _MINOR = ("NOx_ppm", "NO2_fraction", "NH3_ppm", "N2O_ppm", "H2_ppm")
 _OUT_COMMON = {"method", "T_C", "p_kPa"} | set(_MINOR)
-_OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_g_kg"}
+_OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_g_kg",
+                                  "idle_fuel_pct"}
+#: Fuel energy flow of an idle (zero-power) mode, as a percentage of the fuel energy flow at
+#: the highest-power mode, when the case does not give ``engine_out.idle_fuel_pct``: low idle
+#: of a diesel-cycle engine burns a few percent of its rated fuel flow (from memory; pass the
+#: engine's own value).
+IDLE_FUEL_PCT_DEFAULT = 5.0
 _OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
 _DOSING = {"method", "ANR", "urea_mass_fraction"}
 _LIMITS = {"sets", "gwp", "custom"}
@@ -223,6 +231,12 @@ def _engine_out(data, n, file) -> dict:
         out["lambda"] = _per_mode(e, "lambda", n, file, pre, lo=1.0, hi=10.0)
         out["intake_humidity_g_kg"] = _per_mode(e, "intake_humidity_g_kg", n, file, pre, lo=0.0,
                                                 hi=60.0, required=False, default=10.71)
+        v = e.get("idle_fuel_pct", IDLE_FUEL_PCT_DEFAULT)
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 < v <= 50:
+            raise InputError("expected a percentage of the rated fuel energy flow within "
+                             "(0, 50]", key=pre + "idle_fuel_pct", value=v, file=file)
+        out["idle_fuel_pct"] = float(v)
+        out["idle_fuel_pct_given"] = "idle_fuel_pct" in e
     else:
         out["mass_flow_kg_s"] = _per_mode(e, "mass_flow_kg_h", n, file, pre, lo=1e-6) / 3600.0
         out["O2_pct"] = _per_mode(e, "O2_pct", n, file, pre, lo=0.0, hi=21.0)

@@ -175,11 +175,21 @@ def engine_out_stream(case, i: int):
                  "NH3": e["NH3_ppm"][i], "N2O": e["N2O_ppm"][i], "H2": e["H2_ppm"][i]}
         blend = combustion.FuelBlend(energy_shares=case.fuel["shares"],
                                      cracked_H2=case.fuel["cracked_H2"])
+        fuel_kW = None
+        if power <= 0.0:
+            # idle: no brake power to divide by an efficiency; the fuel burned is a share of
+            # the fuel at the highest-power mode (engine_out.idle_fuel_pct)
+            top = max(range(case.n_modes),
+                      key=lambda k: mode_power_fraction(case.cycle.modes[k]))
+            rated_fuel_kW = (case.engine.rated_power_kW
+                             * mode_power_fraction(case.cycle.modes[top])
+                             / e["brake_efficiency"][top])
+            fuel_kW = e["idle_fuel_pct"] / 100.0 * rated_fuel_kW
         try:
             res = combustion.combustion(power, e["brake_efficiency"][i], blend, e["lambda"][i],
                                         T_K=e["T_K"][i], p_Pa=e["p_Pa"][i],
                                         intake_humidity_g_kg=e["intake_humidity_g_kg"][i],
-                                        minor=minor)
+                                        minor=minor, fuel_kW=fuel_kW)
         except InputError as exc:
             raise InputError(f"mode '{mode.name}': {exc.expected}", key="engine_out",
                              value=exc.value, file=case.file) from None
@@ -262,6 +272,15 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
         if not m.solution.converged:
             warnings.append(f"mode '{m.name}': the solver did not converge; its numbers are "
                             "flagged")
+    idle = [m.name for m in results if m.power_kW <= 0.0]
+    e = case.engine_out
+    if idle and e["method"] == "combustion":
+        warnings.append(
+            "idle mode(s) " + ", ".join(f"'{n}'" for n in idle) + ": exhaust from a fuel flow of "
+            f"{e['idle_fuel_pct']:g} % of the highest-power mode's ("
+            + ("engine_out.idle_fuel_pct" if e.get("idle_fuel_pct_given") else
+               "default, from memory: give engine_out.idle_fuel_pct") + "); no g/kWh at idle, "
+            "its g/h counts in the weighted cycle values")
     return CycleResult(case=case, modes=results, cycle=cyc, engine_out_cycle=eo_cyc,
                        limits=rows, seconds=time.perf_counter() - t0, warnings=warnings,
                        train=train)

@@ -323,6 +323,10 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
                 skip = f"mode exempt ({row.clause})"
             elif row.min_load_pct is not None and m.power_kW < row.min_load_pct / 100 * p_rated:
                 skip = f"below {row.min_load_pct:g} % load: not applicable"
+            elif row.quantity.endswith("_g_kWh") and m.power_kW <= 0.0:
+                # ISO 8178-4: an idle mode has no brake power, so no specific emission of its
+                # own; its g/h enters the weighted cycle value through the numerator
+                skip = "idle mode (no brake power): no g/kWh; its g/h counts in the cycle value"
             try:
                 v = _mode_value(limit_set, row, m, gwp_set)
             except InputError:

@@ -1,0 +1,150 @@
+"""Idle (zero-power) modes: the exhaust of a combustion-method case, and specific emissions.
+
+ISO 8178-4 weights an idle mode's mass emission (g/h) into the cycle's weighted specific
+emission, sum(W_i g_i) / sum(W_i P_i), while the idle mode itself has no brake power and so no
+g/kWh of its own. The cases are INVENTED test data."""
+import json
+
+import numpy as np
+import pytest
+
+from aftertreat.cli import main
+from aftertreat.cyclecase import load_run_case
+from aftertreat.errors import InputError
+from aftertreat.evaluate import mode_inlets, run_case
+from aftertreat.species import INDEX
+
+CASE = """
+title = "invented: 1 MW ammonia engine on C1 (has an idle mode)"
+[engine]
+application = "stationary engine"
+rated_power_kW = 1000
+rated_speed_rpm = 1500
+[fuel]
+NH3 = 0.95
+H2 = 0.05
+[cycle]
+iso8178 = "C1"
+[engine_out]
+method = "combustion"
+brake_efficiency = 0.40
+lambda = 2.2
+T_C = 360
+p_kPa = 103
+NOx_ppm = 900
+NO2_fraction = 0.1
+NH3_ppm = 1500
+N2O_ppm = 60
+{extra}
+[dosing]
+method = "none"
+[[brick]]
+name = "SCR"
+catalyst = "cu_chabazite"
+substrate = "coated"
+cpsi = 400
+wall_mil = 4
+washcoat_um = [40]
+length = "300 mm"
+diameter = "600 mm"
+cells = 20
+[limits]
+sets = ["imo_tier_iii"]
+"""
+
+MEASURED = """
+title = "invented: measured exhaust with an idle mode in a custom cycle"
+[engine]
+application = "stationary engine"
+rated_power_kW = 500
+rated_speed_rpm = 1500
+[fuel]
+NH3 = 1.0
+[[cycle.mode]]
+name = "rated"
+weight = 0.8
+power_pct = 100
+[[cycle.mode]]
+name = "idle"
+weight = 0.2
+power_pct = 0
+[engine_out]
+method = "measured"
+basis = "wet"
+mass_flow_kg_h = [2600, 300]
+T_C = [380, 250]
+O2_pct = [11, 17]
+H2O_pct = [22, 8]
+NOx_ppm = [900, 300]
+NH3_ppm = [1200, 800]
+[dosing]
+method = "none"
+[[brick]]
+name = "SCR"
+catalyst = "cu_chabazite"
+substrate = "coated"
+cpsi = 400
+wall_mil = 4
+washcoat_um = [40]
+length = "300 mm"
+diameter = "500 mm"
+cells = 20
+[limits]
+sets = ["imo_tier_iii"]
+"""
+
+
+def _case(tmp_path, text, name="c.toml"):
+    f = tmp_path / name
+    f.write_text(text)
+    return f
+
+
+def test_combustion_idle_mode_burns_its_share_of_the_rated_fuel(tmp_path):
+    """At equal lambda the atom balance is linear in the fuel flow, so the idle exhaust is
+    idle_fuel_pct / 100 of the highest-power mode's, to round-off (C1's idle mode, 7 %)."""
+    case = load_run_case(_case(tmp_path, CASE.format(extra="idle_fuel_pct = 7")))
+    inl = mode_inlets(case)
+    names = [m.name for m in case.cycle.modes]
+    idle = [i for i, m in enumerate(inl) if m[0] == 0.0]
+    top = int(np.argmax([m[0] for m in inl]))
+    assert len(idle) == 1 and names[idle[0]]
+    big = inl[top][1].F > 0
+    ratio = inl[idle[0]][1].F[big] / inl[top][1].F[big]
+    np.testing.assert_allclose(ratio, 0.07, rtol=1e-9)
+
+
+def test_idle_case_runs_and_says_how_the_idle_exhaust_was_made(tmp_path, capsys):
+    """`aftertreat run` on a C1 combustion case: exit 0, finite numbers only in the JSON, and
+    a warning naming the default idle fuel share as an assumption."""
+    f = _case(tmp_path, CASE.format(extra=""))
+    assert main(["run", str(f), "--json"]) == 0
+    text = capsys.readouterr().out
+    assert "Infinity" not in text and "NaN" not in text
+    obj = json.loads(text)
+    assert any("idle" in w and "idle_fuel_pct" in w for w in obj["warnings"])
+
+
+def test_per_mode_g_kWh_rows_do_not_apply_at_idle(tmp_path):
+    """Measured exhaust, a custom cycle with an idle mode that no clause exempts: the per-mode
+    g/kWh cap does not apply there (limit None, a note says why), the cycle value includes
+    the idle g/h (weighted: sum W g / sum W P)."""
+    case = load_run_case(_case(tmp_path, MEASURED))
+    res = run_case(case)
+    rows = [r for r in res.limits if r.get("mode") == "idle"]
+    assert rows and all(r["limit"] is None and "idle" in r["note"] for r in rows)
+    assert all(np.isfinite(r["value"]) or r["value"] is None for r in res.limits
+               if r["limit"] is not None)
+    idle = next(m for m in res.modes if m.name == "idle")
+    rated = next(m for m in res.modes if m.name == "rated")
+    g_rated, g_idle = (m.emissions()["NOx_g_h"] for m in (rated, idle))
+    assert g_idle > 0
+    expect = (0.8 * g_rated + 0.2 * g_idle) / (0.8 * 500.0)
+    assert res.cycle["NOx_g_kWh"] == pytest.approx(expect, rel=1e-9)
+
+
+@pytest.mark.parametrize("bad", ["0", "80", '"five"'])
+def test_bad_idle_fuel_share(tmp_path, bad):
+    with pytest.raises(InputError) as e:
+        load_run_case(_case(tmp_path, CASE.format(extra=f"idle_fuel_pct = {bad}")))
+    assert e.value.key == "engine_out.idle_fuel_pct"
