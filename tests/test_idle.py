@@ -14,6 +14,23 @@ from aftertreat.errors import InputError
 from aftertreat.evaluate import mode_inlets, run_case
 from aftertreat.species import INDEX
 
+#: no dosing, one Cu-CHA brick, the IMO Tier III set (shared by both cases)
+TAIL = """[dosing]
+method = "none"
+[[brick]]
+name = "SCR"
+catalyst = "cu_chabazite"
+substrate = "coated"
+cpsi = 400
+wall_mil = 4
+washcoat_um = [40]
+length = "300 mm"
+diameter = "{diameter} mm"
+cells = 20
+[limits]
+sets = ["imo_tier_iii"]
+"""
+
 CASE = """
 title = "invented: 1 MW ammonia engine on C1 (has an idle mode)"
 [engine]
@@ -36,21 +53,7 @@ NO2_fraction = 0.1
 NH3_ppm = 1500
 N2O_ppm = 60
 {extra}
-[dosing]
-method = "none"
-[[brick]]
-name = "SCR"
-catalyst = "cu_chabazite"
-substrate = "coated"
-cpsi = 400
-wall_mil = 4
-washcoat_um = [40]
-length = "300 mm"
-diameter = "600 mm"
-cells = 20
-[limits]
-sets = ["imo_tier_iii"]
-"""
+""" + TAIL.format(diameter=600)
 
 MEASURED = """
 title = "invented: measured exhaust with an idle mode in a custom cycle"
@@ -77,21 +80,7 @@ O2_pct = [11, 17]
 H2O_pct = [22, 8]
 NOx_ppm = [900, 300]
 NH3_ppm = [1200, 800]
-[dosing]
-method = "none"
-[[brick]]
-name = "SCR"
-catalyst = "cu_chabazite"
-substrate = "coated"
-cpsi = 400
-wall_mil = 4
-washcoat_um = [40]
-length = "300 mm"
-diameter = "500 mm"
-cells = 20
-[limits]
-sets = ["imo_tier_iii"]
-"""
+""" + TAIL.format(diameter=500)
 
 
 def _case(tmp_path, text, name="c.toml"):
