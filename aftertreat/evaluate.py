@@ -221,6 +221,11 @@ def mode_inlets(case) -> list[tuple]:
     return out
 
 
+#: NH3 slip [ppmvd] above which a case without any NH3 limit is warned about: twice the odour
+#: threshold of about 5 ppm (common practice: SCR slip is usually held below 10 ppm)
+NH3_UNLIMITED_WARN_PPMVD = 10.0
+
+
 def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
              settings=None) -> CycleResult:
     """Evaluate every mode of ``case`` (a :class:`~aftertreat.cyclecase.RunCase`).
@@ -272,6 +277,12 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
         if not m.solution.converged:
             warnings.append(f"mode '{m.name}': the solver did not converge; its numbers are "
                             "flagged")
+    if not any(r["quantity"].startswith("NH3") for r in rows) \
+            and cyc["NH3_slip_ppmvd_max"] > NH3_UNLIMITED_WARN_PPMVD:
+        warnings.append(
+            f"no NH3 limit in the case, and the NH3 slip reaches {cyc['NH3_slip_ppmvd_max']:.0f} "
+            "ppmvd (odour near 5 ppm, irritation near 30 ppm): add an NH3 limit "
+            "([[limits.custom]] with quantity NH3_ppmvd)")
     idle = [m.name for m in results if m.power_kW <= 0.0]
     e = case.engine_out
     if idle and e["method"] == "combustion":

@@ -137,3 +137,11 @@ def test_bad_idle_fuel_share(tmp_path, bad):
     with pytest.raises(InputError) as e:
         load_run_case(_case(tmp_path, CASE.format(extra=f"idle_fuel_pct = {bad}")))
     assert e.value.key == "engine_out.idle_fuel_pct"
+
+
+def test_no_nh3_limit_and_high_slip_is_warned(tmp_path):
+    """The C1 case has only NOx limits while its engine-out NH3 (1500 ppm) exceeds the NOx:
+    the run warns that the slip is unlimited (common practice: SCR slip held below 10 ppm)."""
+    res = run_case(load_run_case(_case(tmp_path, CASE.format(extra=""))))
+    assert res.cycle["NH3_slip_ppmvd_max"] > 10.0
+    assert any("no NH3 limit" in w for w in res.warnings)
