@@ -68,11 +68,18 @@ def read_toml(path: str | Path) -> dict:
     p = Path(path)
     if not p.exists():
         raise InputError("file not found", file=str(p))
+    if p.is_dir():
+        raise InputError("expected a case file (TOML), and this is a folder", file=str(p))
     try:
         with open(p, "rb") as fh:
             return tomllib.load(fh)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML ({exc})", file=str(p)) from None
+    except UnicodeDecodeError:
+        raise InputError("expected a TOML text file in UTF-8 (this one is binary or in another "
+                         "encoding, e.g. UTF-16: save it as UTF-8)", file=str(p)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror})", file=str(p)) from None
 
 
 def _unknown(table: dict, allowed: set, file: str, prefix: str) -> None:
@@ -84,9 +91,17 @@ def _unknown(table: dict, allowed: set, file: str, prefix: str) -> None:
 
 def _quantity(table: dict, base: str, unit: str, suffix_unit: tuple[str, str] | None, file: str,
               prefix: str, required: bool = True, default=None):
-    """Read ``base`` (string with units or bare number in ``unit``) or ``base_<suffix>``."""
+    """Read ``base`` (a string with its unit; a bare number is refused) or ``base_<suffix>``
+    (a number in the suffix's unit), as ``unit`` (SI)."""
     if base in table:
-        return to_si(table[base], unit, key=f"{prefix}{base}", file=file)
+        v = table[base]
+        if isinstance(v, (int, float)) and not isinstance(v, bool):
+            # a bare number has no unit: refuse it rather than guess (700 is not 700 m)
+            show = suffix_unit[1] if suffix_unit else unit
+            alt = f", or {base}_{suffix_unit[0]} = {v:g}" if suffix_unit else ""
+            raise InputError(f'expected a quantity with its unit, e.g. {base} = "{v:g} {show}"'
+                             f"{alt}", key=f"{prefix}{base}", value=v, file=file)
+        return to_si(v, unit, key=f"{prefix}{base}", file=file)
     if suffix_unit and f"{base}_{suffix_unit[0]}" in table:
         key = f"{base}_{suffix_unit[0]}"
         v = table[key]

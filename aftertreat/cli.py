@@ -71,6 +71,9 @@ def main(argv: list[str] | None = None) -> int:
     from .errors import ConvergenceError, InputError
     args = _build_parser().parse_args(argv)
     try:
+        if getattr(args, "report", None):           # checked before any solving
+            from .report import check_report_folder
+            check_report_folder(args.report)
         if args.command == "run":
             return _run(args)
         if args.command == "size":

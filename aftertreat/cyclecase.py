@@ -156,9 +156,9 @@ def _engine(data, file) -> EngineSpec:
                          + did_you_mean(app, APPLICATIONS), key="engine.application", value=app,
                          file=file)
     p = e.get("rated_power_kW")
-    if not isinstance(p, (int, float)) or isinstance(p, bool) or not p > 0:
-        raise InputError("expected a rated power > 0 kW", key="engine.rated_power_kW", value=p,
-                         file=file)
+    if not isinstance(p, (int, float)) or isinstance(p, bool) or not 0 < p <= 2e6:
+        raise InputError("expected a rated power within (0, 2e6] kW", key="engine.rated_power_kW",
+                         value=p, file=file)
     n = e.get("rated_speed_rpm")
     if n is not None and (not isinstance(n, (int, float)) or isinstance(n, bool) or not n > 0):
         raise InputError("expected a rated speed > 0 rpm", key="engine.rated_speed_rpm",

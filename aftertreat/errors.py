@@ -27,7 +27,10 @@ class InputError(ValueError):
         if self.key:
             where.append(f"key '{self.key}'")
         head = ": ".join(where) if where else "input"
-        val = "" if self.value is None else f" = {self.value!r}"
+        v = self.value
+        if hasattr(v, "item") and getattr(v, "ndim", None) == 0:
+            v = v.item()                          # numpy scalar: print 50.0, not np.float64(50.0)
+        val = "" if v is None else f" = {v!r}"
         return f"{head}{val}: {self.expected}"
 
     def located(self, *, file: str | None = None, prefix: str | None = None) -> "InputError":

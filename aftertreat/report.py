@@ -6,6 +6,7 @@ import io
 from pathlib import Path
 
 from .output import SAFETY_NOTE, to_json, write_atomic
+from .errors import InputError
 
 __all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml",
            "sources_text"]
@@ -51,6 +52,30 @@ def to_toml(data: dict, prefix: str = "") -> str:
 
 def _csv(df) -> str:
     return df.to_csv(index=False, float_format="%.6g")
+
+
+def check_report_folder(folder: str | Path) -> None:
+    """Raise :class:`InputError` (key ``--report``) before any solving if ``folder`` cannot
+    hold a report: an existing file, or a folder whose nearest existing parent is not a
+    writable folder."""
+    import os
+    path = Path(folder)
+    if path.exists() and not path.is_dir():
+        raise InputError("expected a folder for the report, and this is an existing file",
+                         key="--report", value=str(folder))
+    up = path if path.exists() else path.parent
+    while not up.exists() and up != up.parent:
+        up = up.parent
+    ok = up.is_dir()
+    if ok:                                 # a real write test (permission bits do not bind root)
+        import tempfile
+        try:
+            os.rmdir(tempfile.mkdtemp(prefix=".aftertreat-probe-", dir=up))
+        except OSError:
+            ok = False
+    if not ok:
+        raise InputError(f"cannot write a report there: '{up}' is not a writable folder",
+                         key="--report", value=str(folder))
 
 
 def write_report(result, folder: str | Path) -> list[Path]:

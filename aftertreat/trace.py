@@ -47,6 +47,10 @@ QUANTITIES = {
 
 #: value of an absent optional column, in the SI unit of QUANTITIES (p: standard atmosphere)
 _DEFAULTS = {"p": 101325.0, "NO2_fraction": 0.0, "NH3": 0.0, "N2O": 0.0, "H2": 0.0}
+#: Species an ammonia engine's trace must carry unless the case declares them zero
+#: ([transient] zero_columns): a missing NH3 or N2O column is far more often a lost column
+#: than an engine that emits none, and reading it as zero would hide the slip and the N2O.
+DECLARE_ZERO = ("NH3", "N2O")
 
 #: physical sense, in SI: (low, high, low inclusive?, what is expected, in the file's words)
 #: Basis: the project conventions (T in 0..900 degC, ppm >= 0); O2 cannot exceed that of air
@@ -152,14 +156,16 @@ def _unit(text: str, q: str, header: str, file: str):
 
 
 def read_trace(path, *, columns: dict | None = None, basis: str = "dry",
-               file: str | None = None) -> Trace:
+               file: str | None = None, zero=("NH3", "N2O")) -> Trace:
     """Read an engine-out time trace from the CSV file ``path``.
 
     ``columns`` maps quantity names of :data:`QUANTITIES` to the file's header names (without
     the ``[unit]`` part); unmapped quantities use the default names. Header names match ignoring
     case and surrounding spaces. ``basis`` ("dry"/"wet") applies to O2 and the ppm columns.
     ``file`` names the file in error messages (default: ``path``). Absent optional columns take
-    p = 101325 Pa and zero for NO2/NOx and the species.
+    p = 101325 Pa and zero for NO2/NOx and H2; NH3 and N2O (:data:`DECLARE_ZERO`) may be absent
+    only if listed in ``zero`` (the case's ``[transient] zero_columns``; the library default
+    lets both be absent).
 
     Every bad value is an :class:`~aftertreat.errors.InputError` naming the file, the column
     (``key`` = the header cell as written), the value as written and the data row (1-based,
@@ -211,6 +217,12 @@ def read_trace(path, *, columns: dict | None = None, basis: str = "dry",
                              key=cells[hits[0]], file=file)
         if hits:
             where[q] = hits[0]
+        elif q in DECLARE_ZERO and q not in zero:
+            raise InputError(
+                f"missing column '{name}' (e.g. '{name} [{QUANTITIES[q][0]}]'); headers found: "
+                f"{', '.join(cells)}. If the engine emits no {q}, say so in the case with "
+                f'[transient] zero_columns = ["{q}"]' + did_you_mean(name, names), key=name,
+                file=file)
         elif QUANTITIES[q][1]:
             raise InputError(
                 f"missing required column '{name}' (quantity '{q}', e.g. '{name} "

@@ -6,6 +6,8 @@ The ``[transient]`` table of a duty-cycle case (all keys optional except as note
     trace = "harbour_manoeuvre.csv"   # a time trace (aftertreat.trace), relative to the case;
     basis = "dry"                     # ... its concentration basis, and
     columns = { T = "T_exh" }         # ... its column names where they are not ours
+    zero_columns = ["N2O"]            # species the trace leaves out because the engine emits
+                                      # none (NH3 and N2O columns are required otherwise)
     hold_s = 300                      # without a trace: hold each mode of [cycle] this long,
     ramp_s = 30                       # ... ramping linearly between modes over this
     dt_s = 1.0                        # step of the ramped form (a trace keeps its own times)
@@ -43,8 +45,8 @@ from .transient import TransientResult, TransientSettings, simulate, start
 
 __all__ = ["parse_transient", "timeline", "run_transient", "TransientRun", "Timeline"]
 
-_KEYS = {"trace", "basis", "columns", "hold_s", "ramp_s", "dt_s", "start", "T_start_C",
-         "conduction", "dosing"}
+_KEYS = {"trace", "basis", "columns", "zero_columns", "hold_s", "ramp_s", "dt_s", "start",
+         "T_start_C", "conduction", "dosing"}
 _DOSING_KEYS = {"control", "ANR_map", "target_fraction", "response_s", "ANR_max"}
 CONTROLS = ("fixed", "map", "storage")
 #: Default feed-forward map (common practice: no dosing below ~180 C, where ammonium salts
@@ -92,11 +94,18 @@ def parse_transient(data: dict, file: str, *, has_cycle: bool, dosing_method: st
             raise InputError("expected a table of our name = your column name",
                              key="transient.columns", value=cols, file=file)
         out["columns"] = cols
+        zero = t.get("zero_columns", [])
+        from .trace import DECLARE_ZERO
+        if not isinstance(zero, list) or any(z not in DECLARE_ZERO for z in zero):
+            raise InputError(f"expected a list of species among {', '.join(DECLARE_ZERO)} that "
+                             "the trace leaves out because the engine emits none",
+                             key="transient.zero_columns", value=zero, file=file)
+        out["zero_columns"] = tuple(zero)
     else:
         if not has_cycle:
             raise InputError("give a trace, or a [cycle] to step through",
                              key="transient.trace", file=file)
-        for k in ("basis", "columns"):
+        for k in ("basis", "columns", "zero_columns"):
             if k in t:
                 raise InputError("belongs to a trace: give 'trace' too", key=f"transient.{k}",
                                  value=t[k], file=file)
@@ -165,7 +174,8 @@ def timeline(case) -> Timeline:
     tr = case.transient
     if tr["trace"] is not None:
         from .trace import read_trace
-        trace = read_trace(tr["trace"], columns=tr["columns"], basis=tr["basis"])
+        trace = read_trace(tr["trace"], columns=tr["columns"], basis=tr["basis"],
+                           zero=tr.get("zero_columns", ()))
         n = len(trace)
         anr = np.full(n, float(case.dosing["ANR"][0]))
         return Timeline(t_s=np.asarray(trace.t_s, dtype=float), power_kW=np.asarray(

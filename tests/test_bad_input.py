@@ -203,3 +203,61 @@ def test_runaway_unit_in_a_trace_header(tmp_path):
     with pytest.raises(InputError) as e:
         read_trace(f)
     assert "T [2**1000**1000]" in str(e.value)
+
+
+# ---- case files and report paths at the command line -----------------------------------------
+_DEMO = __import__("pathlib").Path(__file__).resolve().parents[1] / "cases" / "genset_d2.toml"
+
+
+def _cli(argv, capsys):
+    from aftertreat.cli import main
+    rc = main(argv)
+    err = capsys.readouterr().err.strip().splitlines()
+    return rc, err
+
+
+def _edited(tmp_path, old, new, name="case.toml"):
+    text = _DEMO.read_text()
+    assert old in text
+    f = tmp_path / name
+    f.write_text(text.replace(old, new, 1))
+    return f
+
+
+@pytest.mark.parametrize("old,new,key,words", [
+    ('length = "700 mm"', "length = 700", "length", 'length = "700 mm"'),
+    ('diameter = "1300 mm"', "diameter = 1300", "diameter", "diameter_mm = 1300"),
+    ("rated_power_kW = 2000", "rated_power_kW = 1e300", "engine.rated_power_kW", "2e6"),
+])
+def test_case_values_refused_in_one_line(tmp_path, capsys, old, new, key, words):
+    """A bare number on a dimensional key is refused with the units it takes (700 would be
+    700 m), and an absurd rated power is refused before it overflows: exit 2, one line."""
+    rc, err = _cli(["run", str(_edited(tmp_path, old, new))], capsys)
+    assert rc == 2 and len(err) == 1, err
+    assert key in err[0] and words in err[0] and "case.toml" in err[0]
+
+
+@pytest.mark.parametrize("kind", ["binary", "utf16", "folder"])
+def test_unreadable_case_files_refused_in_one_line(tmp_path, capsys, kind):
+    f = tmp_path / "case.toml"
+    if kind == "binary":
+        f.write_bytes(bytes(range(256)) * 4)
+    elif kind == "utf16":
+        f.write_bytes(_DEMO.read_text().encode("utf-16"))
+    else:
+        f.mkdir()
+    rc, err = _cli(["run", str(f)], capsys)
+    assert rc == 2 and len(err) == 1 and "case.toml" in err[0], err
+
+
+def test_report_paths_checked_before_solving(tmp_path, capsys, monkeypatch):
+    """--report onto an existing file, or under a parent that cannot be written, is exit 2
+    with one line, before any mode is solved."""
+    import aftertreat.evaluate as ev
+    monkeypatch.setattr(ev, "run_case", lambda *a, **k: pytest.fail("solved before the check"))
+    existing = tmp_path / "notes.txt"
+    existing.write_text("the user's file")
+    for target in (existing, existing / "rep", "/proc/aftertreat-report"):
+        rc, err = _cli(["run", str(_DEMO), "--report", str(target)], capsys)
+        assert rc == 2 and len(err) == 1 and "--report" in err[0], (target, err)
+    assert existing.read_text() == "the user's file"

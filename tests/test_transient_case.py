@@ -140,3 +140,30 @@ def test_sources_of_a_trace_case(tmp_path, capsys):
     assert main(["sources", str(f)]) == 0
     out = capsys.readouterr().out
     assert "vanadia" in out.lower() and "trace.csv" in out
+
+
+def _drop_column(f, name):
+    """Rewrite the case's trace without the column ``name``."""
+    trace = f.parent / "trace.csv"
+    rows = [r.split(",") for r in trace.read_text().splitlines()]
+    j = next(k for k, c in enumerate(rows[0]) if c.startswith(name + " ["))
+    trace.write_text("\n".join(",".join(r[:j] + r[j + 1:]) for r in rows) + "\n")
+
+
+def test_trace_without_its_nh3_column_is_refused(tmp_path, capsys):
+    """A trace that lost its NH3 column is not read as an engine without NH3 slip: exit 2,
+    one line naming the column and how to declare a real zero."""
+    f = _trace_case(tmp_path)
+    _drop_column(f, "NH3")
+    assert main(["run", str(f)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "NH3" in err[0] and "zero_columns" in err[0], err
+
+
+def test_declared_zero_column_runs(tmp_path, capsys):
+    """With [transient] zero_columns = ["N2O"] the trace may leave N2O out (read as zero)."""
+    f = _trace_case(tmp_path, zero_columns=["N2O"])
+    _drop_column(f, "N2O")
+    assert main(["run", str(f), "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    assert obj["transient"]["converged"] is True
