@@ -177,6 +177,10 @@ def timeline(case) -> Timeline:
         trace = read_trace(tr["trace"], columns=tr["columns"], basis=tr["basis"],
                            zero=tr.get("zero_columns", ()))
         n = len(trace)
+        if n < 2:
+            raise InputError(f"expected at least two data rows to run through time; found {n}",
+                             key="transient.trace", value=Path(tr["trace"]).name,
+                             file=case.file)
         anr = np.full(n, float(case.dosing["ANR"][0]))
         return Timeline(t_s=np.asarray(trace.t_s, dtype=float), power_kW=np.asarray(
             trace.power_kW, dtype=float), engine_out=trace.exhausts(), anr_fixed=anr,

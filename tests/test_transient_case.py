@@ -167,3 +167,14 @@ def test_declared_zero_column_runs(tmp_path, capsys):
     assert main(["run", str(f), "--json"]) == 0
     obj = json.loads(capsys.readouterr().out)
     assert obj["transient"]["converged"] is True
+
+
+def test_one_row_trace_is_refused(tmp_path, capsys):
+    """A trace with one data row cannot be run through time: exit 2, one line (it used to end
+    in a traceback from the integrator)."""
+    f = _trace_case(tmp_path)
+    trace = f.parent / "trace.csv"
+    trace.write_text("\n".join(trace.read_text().splitlines()[:2]) + "\n")
+    assert main(["run", str(f)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "transient.trace" in err[0] and "two data rows" in err[0], err
