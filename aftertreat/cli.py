@@ -39,6 +39,9 @@ def _build_parser() -> argparse.ArgumentParser:
                     help="override a case value by its dotted path, e.g. "
                          "'brick.SCR 1.length=700 mm' (repeatable)")
     rn.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    rn.add_argument("--strict", action="store_true",
+                    help="an inlet temperature outside a catalyst's validity range is an error "
+                         "(default: a warning, and the rates are extrapolated)")
     rn.add_argument("--report", metavar="DIR", help="write tables, plots, sources, the case as "
                     "run and the safety cautions into DIR")
     sz = sub.add_parser("size", help="find the smallest SCR and slip catalyst that meet every "
@@ -47,6 +50,9 @@ def _build_parser() -> argparse.ArgumentParser:
     sz.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                     help="override a case value by its dotted path (repeatable)")
     sz.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    sz.add_argument("--strict", action="store_true",
+                    help="an inlet temperature outside a catalyst's validity range is an error "
+                         "(default: a warning, and the rates are extrapolated)")
     sz.add_argument("--report", metavar="DIR", help="write the sizing curves (CSV, PNG) and the "
                     "report of the sized design into DIR")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
@@ -55,6 +61,9 @@ def _build_parser() -> argparse.ArgumentParser:
                     help="override a case value by its dotted path, e.g. "
                          "'brick.SCR 1.length=700 mm' (repeatable)")
     pt.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    pt.add_argument("--strict", action="store_true",
+                    help="an inlet temperature outside a catalyst's validity range is an error "
+                         "(default: a warning, and the rates are extrapolated)")
     so = sub.add_parser("sources", help="list the sources behind a case's numbers: catalysts, "
                         "correlations, cycle and limits")
     so.add_argument("case", help="case file (TOML)")
@@ -69,8 +78,10 @@ def _build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     from .errors import ConvergenceError, InputError
+    from .reactor import set_strict_temperature_range
     args = _build_parser().parse_args(argv)
     try:
+        set_strict_temperature_range(bool(getattr(args, "strict", False)))
         if getattr(args, "report", None):           # checked before any solving
             from .report import check_report_folder
             check_report_folder(args.report)
@@ -92,6 +103,8 @@ def main(argv: list[str] | None = None) -> int:
         return _fail(1, str(exc))
     except KeyboardInterrupt:
         return _fail(1, "interrupted")
+    finally:
+        set_strict_temperature_range(False)       # the flag holds for this command only
     return 0
 
 

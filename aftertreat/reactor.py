@@ -111,10 +111,25 @@ class BrickSolution:
         return self.F[:, INDEX[species]] / self.F.sum(axis=1) * 1e6
 
 
+#: Whether an inlet temperature outside a catalyst's validity range is an error (strict) or a
+#: warning carried in the solution's notes (the default; ``aftertreat ... --strict`` sets it).
+_STRICT_RANGE = [False]
+
+
+def set_strict_temperature_range(strict: bool) -> None:
+    """Make an inlet temperature outside a catalyst's validity range an :class:`InputError`
+    (``True``) or a warning in the solution's notes (``False``, the default)."""
+    _STRICT_RANGE[0] = bool(strict)
+
+
 def solve_brick(brick: Brick, inlet: Stream, *, guess: "WarmStart | BrickSolution | None" = None,
                 settings: SolverSettings | None = None,
                 check_validity: bool = True) -> BrickSolution:
     """Steady state of ``brick`` fed by ``inlet``.
+
+    An inlet temperature outside a catalyst's validity range is a warning in the notes (the
+    same rule as for the brick's own temperatures), or an :class:`InputError` in strict mode
+    (:func:`set_strict_temperature_range`); ``check_validity=False`` skips the check.
 
     Never raises on non-convergence: the solution carries ``converged`` and ``residual``.
     ``guess`` (a previous solution or its :class:`WarmStart`) warm-starts the solver: for a
@@ -122,15 +137,28 @@ def solve_brick(brick: Brick, inlet: Stream, *, guess: "WarmStart | BrickSolutio
     factors let most cells converge by chord steps alone.
     """
     t0 = time.perf_counter()
+    range_notes = []
     if check_validity:
         for cat in brick.catalysts:
-            cat.check_temperature(inlet.T, f"inlet temperature of brick '{brick.name}'")
+            if _STRICT_RANGE[0]:
+                cat.check_temperature(inlet.T, f"inlet temperature of brick '{brick.name}'")
+            lo, hi = cat.valid_T
+            if not lo - 1e-9 <= inlet.T <= hi + 1e-9:
+                range_notes.append(
+                    f"inlet temperature {inlet.T - 273.15:.1f} C is outside the validity range "
+                    f"{lo - 273.15:.0f}..{hi - 273.15:.0f} C of '{cat.key}': the rates are "
+                    "extrapolated")
     if isinstance(guess, BrickSolution):
         guess = guess.warm_start
     prob = problem_for(brick)
     bound = prob.bind(inlet)
     out = solve(bound, guess=guess, settings=settings)
-    return package(prob, bound, out, time.perf_counter() - t0)
+    sol = package(prob, bound, out, time.perf_counter() - t0)
+    if range_notes:                      # one note per catalyst: the inlet's says it already
+        said = [c.key for c in brick.catalysts if any(f"of '{c.key}'" in n for n in range_notes)]
+        sol.notes[:] = range_notes + [n for n in sol.notes if not (
+            n.startswith("catalyst temperature reached") and any(f"'{k}'" in n for k in said))]
+    return sol
 
 
 def package(prob: BrickProblem, bound, out, seconds: float) -> BrickSolution:

@@ -84,8 +84,16 @@ def test_temperature_outside_catalyst_range():
                                       T=700 + 273.15, mass_kg_s=1.2)
     b = at.Brick("SCR 1", at.Substrate.extruded(cpsi=35, wall_mm=0.7), cat, length=0.6,
                  diameter=0.8)
-    with pytest.raises(InputError) as e:
-        at.solve_brick(b, s)
+    from aftertreat.reactor import set_strict_temperature_range
+    sol = at.solve_brick(b, s)               # default: a warning with the range, not an error
+    note = [n for n in sol.notes if "validity range" in n]
+    assert len(note) == 1 and "700.0 C" in note[0] and "200..550" in note[0]
+    set_strict_temperature_range(True)       # --strict: the error naming the catalyst file
+    try:
+        with pytest.raises(InputError) as e:
+            at.solve_brick(b, s)
+    finally:
+        set_strict_temperature_range(False)
     assert e.value.key == "valid_T_C" and e.value.file == cat.file
     assert "700" in _msg(e) and "SCR 1" in _msg(e) and "vanadia_extruded" in _msg(e)
 
