@@ -18,6 +18,12 @@ import sys
 __all__ = ["main"]
 
 
+def escape(text: str) -> str:
+    """``text`` safe to print through rich (square brackets, as in ``[limits]``, are markup)."""
+    from rich.markup import escape as _escape
+    return _escape(text)
+
+
 def _fail(code: int, text: str) -> int:
     print(f"aftertreat: {text}", file=sys.stderr)
     return code
@@ -198,7 +204,7 @@ def _print_transient(trun, s: dict, safety: str, report) -> None:
     con = Console()
     case = trun.case
     if case.cycle is None:
-        con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+        con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     con.print(f"transient run: {s['source']}; {s['duration_s']:.0f} s in {s['steps']} steps; "
               f"dosing {case.dosing['method']}, control {s['dosing_control']}")
     wk = s["work_kWh"]
@@ -251,7 +257,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
     from rich.table import Table
     con = Console()
     case = res.case
-    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     con.print(f"sizing with a design margin of {case.sizing['design_margin'] * 100:.0f} % on "
               f"every limit, at the aged activities of the case")
     t = Table(title="Sized train", box=box.SIMPLE_HEAD, pad_edge=False)
@@ -285,9 +291,9 @@ def _print_size(res, safety: str, report: str | None) -> None:
     else:
         con.print("[red]NOT FEASIBLE[/red]")
         for p in res.problems:
-            con.print(f"  - {p}")
+            con.print(f"  - {escape(p)}")
         if res.suggestions:
-            con.print("what would change that: " + "; ".join(res.suggestions))
+            con.print("what would change that: " + escape("; ".join(res.suggestions)))
     L = Table(title="Margin on every limit at the sized design", box=box.SIMPLE_HEAD,
               pad_edge=False)
     for col in ("limit", "mode", "value", "limit", "unit", "margin %"):
@@ -308,7 +314,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
     from rich.table import Table
     con = Console()
     case = result.case
-    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     con.print(f"{case.engine.application}, {case.engine.rated_power_kW:.0f} kW"
               + (f" at {case.engine.rated_speed_rpm:.0f} rpm" if case.engine.rated_speed_rpm
                  else "") + f"; cycle {case.cycle.name}; dosing {case.dosing['method']}")
@@ -352,7 +358,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
         text = w.split(": ", 1)[1] if w.startswith("mode '") else w
         if text not in seen:                      # the same note at every mode: show it once
             seen.add(text)
-            con.print(f"[yellow]note: {text if text != w else w}[/yellow]")
+            con.print(f"[yellow]note: {escape(text if text != w else w)}[/yellow]")
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
@@ -395,7 +401,7 @@ def _print_point(case, sol, safety: str) -> None:
     from rich.console import Console
     from rich.table import Table
     con = Console()
-    con.print(f"[bold]{case.title}[/bold]  ({case.file})")
+    con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     inl, out = sol.inlet, sol.outlet
     con.print(f"exhaust {inl.mass_flow * 3600:.0f} kg/h, {inl.T - 273.15:.1f} C, "
               f"{inl.p / 1e3:.1f} kPa; GHSV {sol.ghsv_per_h():.0f} 1/h (0 C, 101.325 kPa); "
@@ -422,7 +428,7 @@ def _print_point(case, sol, safety: str) -> None:
                   f"{od[sp] / 1e4:.2f}")
     con.print(s)
     for w in sol.warnings:
-        con.print(f"[yellow]note: {w}[/yellow]")
+        con.print(f"[yellow]note: {escape(w)}[/yellow]")
     con.print(f"element balance error {sol.element_balance_error:.1e}; solved in "
               f"{sol.seconds * 1e3:.0f} ms. Kinetic parameters and their provenance: "
               "'aftertreat catalysts KEY'.")

@@ -35,6 +35,7 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     [limits]
     sets = ["imo_tier_iii"]
     gwp = "AR6"
+    co2e_rise_warn_pct = 10            # warn when the train adds more CO2e (N2O) than this
     [[limits.custom]]                  # name, quantity, value, unit, o2_ref_pct, source
     [sizing]                           # for 'aftertreat size' (all optional)
     design_margin = 0.1                # every limit tightened by 10 %
@@ -85,7 +86,11 @@ _OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_
 IDLE_FUEL_PCT_DEFAULT = 5.0
 _OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
 _DOSING = {"method", "ANR", "urea_mass_fraction"}
-_LIMITS = {"sets", "gwp", "custom"}
+_LIMITS = {"sets", "gwp", "custom", "co2e_rise_warn_pct"}
+#: A run warns when the train raises the cycle's greenhouse-gas emission (CO2 + N2O as CO2e)
+#: by more than this percentage of the engine-out value ([limits] co2e_rise_warn_pct): N2O
+#: made by SCR and slip catalysts is the real trade-off of an ammonia engine (our default).
+CO2E_RISE_WARN_PCT = 10.0
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
            "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
            "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter",
@@ -118,6 +123,8 @@ class RunCase:
     notes: list[str] = field(default_factory=list)
     #: the validated [transient] table (aftertreat.transient_run), or None
     transient: dict | None = None
+    #: warn when the train adds more than this % of the engine-out CO2e (cycle value)
+    co2e_rise_warn_pct: float = CO2E_RISE_WARN_PCT
 
     @property
     def n_modes(self) -> int:
@@ -289,7 +296,11 @@ def _limits(data, file):
     if gwp not in GWP100:
         raise InputError("expected one of " + ", ".join(GWP100) + did_you_mean(gwp, GWP100),
                          key="limits.gwp", value=gwp, file=file)
-    return sets, gwp
+    warn = L.get("co2e_rise_warn_pct", CO2E_RISE_WARN_PCT)
+    if not isinstance(warn, (int, float)) or isinstance(warn, bool) or not 0 <= warn <= 1000:
+        raise InputError("expected a percentage within [0, 1000]",
+                         key="limits.co2e_rise_warn_pct", value=warn, file=file)
+    return sets, gwp, float(warn)
 
 
 def _sizing(data, file) -> dict:
@@ -369,12 +380,13 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     if not isinstance(bricks, list) or not bricks:
         raise InputError("expected at least one [[brick]]", key="brick", file=file)
     train = Train([parse_brick(b, i, file) for i, b in enumerate(bricks)])
-    sets, gwp = _limits(data, file)
+    sets, gwp, co2e_warn = _limits(data, file)
     return RunCase(title=str(data.get("title", Path(file).stem)), engine=engine, fuel=fuel,
                    cycle=cycle, engine_out=engine_out, dosing=dosing, train=train,
                    limit_sets=sets, gwp_set=gwp, sizing=_sizing(data, file), file=file, data=data,
                    transient=parse_transient(data, file, has_cycle=cycle is not None,
-                                             dosing_method=dosing["method"]))
+                                             dosing_method=dosing["method"]),
+                   co2e_rise_warn_pct=co2e_warn)
 
 
 def load_run_case(path, sets: list[str] | None = None) -> RunCase:

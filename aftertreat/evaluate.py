@@ -283,6 +283,15 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
             f"no NH3 limit in the case, and the NH3 slip reaches {cyc['NH3_slip_ppmvd_max']:.0f} "
             "ppmvd (odour near 5 ppm, irritation near 30 ppm): add an NH3 limit "
             "([[limits.custom]] with quantity NH3_ppmvd)")
+    g0, g1 = eo_cyc["GHG_CO2e_g_kWh"], cyc["GHG_CO2e_g_kWh"]
+    if g0 > 0 and g1 > g0 * (1.0 + case.co2e_rise_warn_pct / 100.0):
+        warnings.append(
+            f"the train raises the greenhouse-gas emission from {g0:.0f} to {g1:.0f} g CO2e/kWh "
+            f"(+{(g1 / g0 - 1) * 100:.0f} %, above the {case.co2e_rise_warn_pct:g} % of "
+            f"limits.co2e_rise_warn_pct): N2O made in the train, "
+            f"{cyc['N2O_g_kWh'] - eo_cyc['N2O_g_kWh']:+.2f} g/kWh "
+            f"({(cyc['N2O_CO2e_g_kWh'] - eo_cyc['N2O_CO2e_g_kWh']):+.0f} g CO2e/kWh, "
+            f"GWP100 {case.gwp_set})")
     idle = [m.name for m in results if m.power_kW <= 0.0]
     e = case.engine_out
     if idle and e["method"] == "combustion":

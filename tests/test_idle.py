@@ -145,3 +145,25 @@ def test_no_nh3_limit_and_high_slip_is_warned(tmp_path):
     res = run_case(load_run_case(_case(tmp_path, CASE.format(extra=""))))
     assert res.cycle["NH3_slip_ppmvd_max"] > 10.0
     assert any("no NH3 limit" in w for w in res.warnings)
+
+
+def test_train_that_raises_co2e_is_warned_and_brackets_survive_printing(tmp_path, capsys):
+    """A Cu-CHA SCR and a dual-layer slip catalyst fed 1500 ppm NH3 make N2O: the cycle CO2e
+    rises by more than the default 10 % (limits.co2e_rise_warn_pct) and the run says so, with
+    the N2O the train made; at 1000 % it does not. The notes print whole in the terminal even
+    with square brackets in them (TOML table names)."""
+    asc = ('[[brick]]\nname = "ASC"\ncatalyst = "asc_dual_layer"\nsubstrate = "coated"\n'
+           'cpsi = 400\nwall_mil = 4\nlength = "100 mm"\ndiameter = "600 mm"\ncells = 20\n'
+           '[limits]\n')
+    text = CASE.format(extra="").replace("[limits]\n", asc, 1)
+    res = run_case(load_run_case(_case(tmp_path, text)))
+    rise = res.cycle["GHG_CO2e_g_kWh"] / res.engine_out_cycle["GHG_CO2e_g_kWh"] - 1
+    assert rise > 0.10
+    warned = [w for w in res.warnings if "greenhouse-gas emission" in w]
+    assert len(warned) == 1 and "N2O made in the train" in warned[0]
+    quiet = text.replace("[limits]\n", "[limits]\nco2e_rise_warn_pct = 1000\n", 1)
+    res2 = run_case(load_run_case(_case(tmp_path, quiet, "quiet.toml")))
+    assert not [w for w in res2.warnings if "greenhouse-gas emission" in w]
+    assert main(["run", str(_case(tmp_path, text, "print.toml"))]) == 0
+    out = capsys.readouterr().out.replace("\n", " ")
+    assert "no NH3 limit" in out and "[[limits.custom]]" in out
