@@ -166,11 +166,9 @@ class _Designs:
         for i, x in enumerate(b):
             L = x.length
             if i in self.scr:
-                L = L_scr * x.length / self.L_scr0
+                L = self.brick_length(i, L_scr, self.L_scr0)
             elif i in self.asc and self.L_asc0 > 0:
-                L = L_asc * x.length / self.L_asc0
-            if i in self.limits:                 # each brick within its buildable range
-                L = min(max(L, self.limits[i][0]), self.limits[i][1])
+                L = self.brick_length(i, L_asc, self.L_asc0)
             kw = {}
             if self.grid is not None:        # coarse search grid
                 kw = {"cells": min(x.cells, self.grid[0]),
@@ -223,11 +221,18 @@ class _Designs:
             out[i] = (lo, hi, why)
         return out
 
+    def brick_length(self, i: int, scale: float, L0: float) -> float:
+        """Length [m] of brick ``i`` at its section's scale ``scale`` (section length ``L0`` in
+        the case): the case's share of the section, held within the brick's buildable range
+        once :attr:`limits` has it."""
+        L = scale * self.case.train.bricks[i].length / L0
+        if i in self.limits:
+            L = min(max(L, self.limits[i][0]), self.limits[i][1])
+        return L
+
     def section_length(self, idx, scale: float, L0: float) -> float:
         """Total length [m] of the bricks ``idx`` at the section scale ``scale``."""
-        b = self.case.train.bricks
-        return sum(min(max(scale * b[i].length / L0, self.limits[i][0]), self.limits[i][1])
-                   for i in idx)
+        return sum(self.brick_length(i, scale, L0) for i in idx)
 
     def __call__(self, L_scr: float, L_asc: float):
         key = (round(L_scr, 9), round(L_asc, 9))
