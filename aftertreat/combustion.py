@@ -303,6 +303,11 @@ def exhaust_from_measurements(*, T_K: float, p_Pa: float = 101325.0,
     if not (np.isfinite(o2_wet) and o2_wet >= 0):
         raise InputError("expected an O2 content >= 0", key="O2_pct", value=O2_pct)
     x["O2"], x["H2O"] = o2_wet * scale_o2, h2o
+    o2_air = float(dry_air()[INDEX["O2"]])
+    if h2o < 1.0 and x["O2"] / (1.0 - h2o) > o2_air:     # more O2 than air on a dry basis
+        raise InputError(f"the O2 and water give {100 * x['O2'] / (1 - h2o):.2f} % O2 dry, "
+                         f"more than dry air holds ({100 * o2_air:.2f} %): check O2_pct, "
+                         "H2O_pct and basis", key="O2_pct", value=O2_pct)
     if sum(x.values()) > 1.0:
         raise InputError("mole fractions add up to more than 100 %", key="O2_pct",
                          value=round(100 * sum(x.values()), 4))

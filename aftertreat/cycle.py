@@ -150,6 +150,12 @@ def _parse_modes(rows, speeds: dict[str, float], file, prefix: str) -> list[Mode
                           power_pct=load if has_p else None, speed_pct=speed,
                           torque_pct=None if has_p else load,
                           cap_exempt=bool(row.get("cap_exempt", False)), speed_label=label))
+    seen: dict[str, int] = {}
+    for i, m in enumerate(modes):
+        if m.name in seen:
+            raise InputError(f"expected a unique mode name; mode {seen[m.name] + 1} has it too",
+                             key=f"{prefix}[{i}].name", value=m.name, file=file)
+        seen[m.name] = i
     total = sum(m.weight for m in modes)
     if abs(total - 1.0) > WEIGHT_SUM_TOL:
         raise InputError(f"expected weights that sum to 1 (within {WEIGHT_SUM_TOL:g}); "

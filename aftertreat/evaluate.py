@@ -202,9 +202,34 @@ def engine_out_stream(case, i: int):
             NO2_fraction=e["NO2_fraction"][i], NH3_ppm=e["NH3_ppm"][i], N2O_ppm=e["N2O_ppm"][i],
             H2_ppm=e["H2_ppm"][i], basis=e["basis"])
     except InputError as exc:
-        raise InputError(f"mode '{mode.name}': {exc.expected}", key="engine_out",
+        key = f"engine_out.{exc.key}" if exc.key in e else "engine_out"
+        raise InputError(f"mode '{mode.name}': {exc.expected}", key=key,
                          value=exc.value, file=case.file) from None
     return power, stream, 0.0
+
+
+def _check_reference_o2(case, i: int, eo: Stream) -> None:
+    """Refuse, before any solving, a mode whose dry O2 makes the reference-O2 correction of one
+    of the case's limit rows diverge (O2_dry at or above the set's O2 of air)."""
+    o2_dry = float(eo.ppm_dry()["O2"]) * 1e-4
+    for ls in case.limit_sets:
+        if any(r.o2_ref_pct is not None for r in ls.rows) and o2_dry >= ls.o2_air_pct:
+            e = case.engine_out
+            key = "engine_out.O2_pct" if e["method"] != "combustion" else "engine_out.lambda"
+            raise InputError(
+                f"mode '{case.cycle.modes[i].name}': the exhaust holds {o2_dry:.2f} % O2 dry, "
+                f"at or above the {ls.o2_air_pct:g} % of air that limit set "
+                f"'{ls.name}' corrects to its reference O2 with (the correction diverges); "
+                "expected a lower O2 or more water on a wet basis", key=key,
+                value=_mode_value(e, key.split(".")[1], i), file=case.file)
+
+
+def _mode_value(e: dict, key: str, i: int):
+    v = e.get(key)
+    try:
+        return float(v[i])
+    except (TypeError, IndexError, KeyError):
+        return v
 
 
 def mode_inlets(case) -> list[tuple]:
@@ -215,10 +240,27 @@ def mode_inlets(case) -> list[tuple]:
     d = case.dosing
     for i in range(case.n_modes):
         power, eo, air_co2 = engine_out_stream(case, i)
+        _check_reference_o2(case, i, eo)
         inlet, reagent = dosing.dose(eo, d["method"], float(d["ANR"][i]),
                                      urea_mass_fraction=d["urea_mass_fraction"])
         out.append((power, eo, air_co2, inlet, reagent))
     return out
+
+
+def mode_labels(case, powers_kW) -> list[str]:
+    """The name each mode is shown and keyed by. ISO mode numbers ("1", "2" ...) are shown by
+    their load ("75 %"); when two modes share a load, or a load label would repeat another
+    mode's name, every numbered mode keeps its number too ("3 (50 %)"), so labels stay unique."""
+    names = [m.name for m in case.cycle.modes]
+    load = [f"{100.0 * p / case.engine.rated_power_kW:.0f} %" for p in powers_kW]
+    numbered = [n.strip().isdigit() for n in names]
+    labels = [load[i] if numbered[i] else n for i, n in enumerate(names)]
+    if len(set(labels)) < len(labels):
+        labels = [f"{n} ({load[i]})" if numbered[i] else n for i, n in enumerate(names)]
+    if len(set(labels)) < len(labels):
+        raise InputError("expected unique mode names", key="cycle.mode", value=names,
+                         file=case.file)
+    return labels
 
 
 #: NH3 slip [ppmvd] above which a case without any NH3 limit is warned about: twice the odour
@@ -242,6 +284,7 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
     train = case.train if train is None else train
     inlets = mode_inlets(case) if inlets is None else inlets
     results: list[ModeResult] = []
+    labels = mode_labels(case, [x[0] for x in inlets])
     guess = None
     n = case.n_modes
     for i, mode in enumerate(case.cycle.modes):
@@ -255,10 +298,7 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
             raise InputError(f"mode '{mode.name}': {exc.expected}", key=exc.key, value=exc.value,
                              file=exc.file or case.file) from None
         guess = sol if sol.converged else guess
-        label = mode.name
-        if label.strip().isdigit():          # ISO mode numbers: show the load too
-            label = f"{100.0 * power / case.engine.rated_power_kW:.0f} %"
-        results.append(ModeResult(name=label, weight=mode.weight, power_kW=power,
+        results.append(ModeResult(name=labels[i], weight=mode.weight, power_kW=power,
                                   cap_exempt=bool(getattr(mode, "cap_exempt", False)),
                                   engine_out=eo, reagent=reagent, inlet=inlet, solution=sol,
                                   air_CO2_mol_s=air_co2))

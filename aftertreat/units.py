@@ -43,12 +43,14 @@ _POWER = None
 def checked_unit_text(text: str) -> bool:
     """True when a unit or quantity text is safe to hand to pint: pint evaluates arithmetic, so
     a text such as ``2**1000**1000`` would run for ever. Powers must be small literal numbers
-    (at most two digits), with no chained powers, and the text at most 80 characters."""
+    (at most two digits), with no chained powers, and the text at most 80 characters. Long
+    digit runs are refused as whole numbers (huge integers) but allowed in plain decimals, such
+    as a full-precision length written back by the tool (``"0.9553796329614969 m"``)."""
     import re
     global _POWER
     if _POWER is None:
         _POWER = re.compile(r"(\*\*|\^)\s*\(?\s*(-?[0-9.]+)\s*\)?(\s*(\*\*|\^))?")
-    if len(text) > 80 or re.search(r"[0-9]{16,}", text):
+    if len(text) > 80 or re.search(r"(?<![0-9.])[0-9]{16,}(?![0-9.])", text):
         return False
     for m in _POWER.finditer(text):
         if m.group(3) or len(m.group(2).lstrip("-").split(".")[0]) > 2:

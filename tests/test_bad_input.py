@@ -269,3 +269,42 @@ def test_report_paths_checked_before_solving(tmp_path, capsys, monkeypatch):
         rc, err = _cli(["run", str(_DEMO), "--report", str(target)], capsys)
         assert rc == 2 and len(err) == 1 and "--report" in err[0], (target, err)
     assert existing.read_text() == "the user's file"
+
+
+def test_full_precision_decimal_length_is_accepted():
+    """A long decimal (as the tool itself may write a length back) is a plain quantity; only
+    long whole numbers are refused by the runaway-arithmetic guard (our own guard)."""
+    from aftertreat.units import to_si
+    assert to_si("0.9553796329614969 m", "m", key="length") == pytest.approx(0.9553796329614969)
+    assert to_si("955.3796329614969 mm", "m", key="length") == pytest.approx(0.9553796329614969)
+
+
+_TURBINE = _DEMO.parent / "turbine_d1.toml"
+
+
+def test_dry_o2_above_air_refused_before_solving(tmp_path, capsys, monkeypatch):
+    """Wet O2 and water that give more O2 on a dry basis than air holds are refused before any
+    mode is solved, naming the file, the mode and the key (y_dry = y_wet / (1 - y_H2O))."""
+    import aftertreat.reactor as rx
+    monkeypatch.setattr(rx, "solve_brick", lambda *a, **k: pytest.fail("solved before"),
+                        raising=False)
+    text = _TURBINE.read_text()
+    old = "O2_pct = [12.0, 12.8, 13.6]"
+    assert old in text
+    f = tmp_path / "gt.toml"
+    f.write_text(text.replace(old, "O2_pct = [12.0, 12.8, 18.5]"))     # 18.5 / 0.86 = 21.5 % dry
+    rc, err = _cli(["run", str(f)], capsys)
+    assert rc == 2 and len(err) == 1, err
+    assert "gt.toml" in err[0] and "engine_out.O2_pct" in err[0] and "mode '3'" in err[0], err
+
+
+def test_dry_o2_between_reference_air_and_air_refused_for_o2_corrected_limits(tmp_path, capsys):
+    """20.9 % <= O2_dry < 20.95 %: physically possible, but the set's reference-O2 correction
+    (O2 of air 20.9 % for this set) diverges; refused before solving, naming the limit set."""
+    text = _TURBINE.read_text()
+    f = tmp_path / "gt.toml"
+    # 17.97 % wet at 14 % water -> 20.90 % dry
+    f.write_text(text.replace("O2_pct = [12.0, 12.8, 13.6]", "O2_pct = [12.0, 12.8, 17.98]"))
+    rc, err = _cli(["run", str(f)], capsys)
+    assert rc == 2 and len(err) == 1, err
+    assert "gt.toml" in err[0] and "mode '3'" in err[0] and "limit set" in err[0], err

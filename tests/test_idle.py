@@ -167,3 +167,24 @@ def test_train_that_raises_co2e_is_warned_and_brackets_survive_printing(tmp_path
     assert main(["run", str(_case(tmp_path, text, "print.toml"))]) == 0
     out = capsys.readouterr().out.replace("\n", " ")
     assert "no NH3 limit" in out and "[[limits.custom]]" in out
+
+
+def test_numeric_mode_names_stay_unique_when_loads_repeat(tmp_path):
+    """Numbered modes are shown by load ("100 %"); two custom modes at the same load keep their
+    numbers ("1 (100 %)", "2 (100 %)"), so their per-mode limit rows stay apart (our rule)."""
+    text = MEASURED.replace('name = "rated"', 'name = "1"').replace(
+        'name = "idle"\nweight = 0.2\npower_pct = 0', 'name = "2"\nweight = 0.2\npower_pct = 100')
+    text = text.replace("mass_flow_kg_h = [2600, 300]", "mass_flow_kg_h = [2600, 2500]")
+    res = run_case(load_run_case(_case(tmp_path, text)))
+    names = [m.name for m in res.modes]
+    assert names == ["1 (100 %)", "2 (100 %)"], names
+    per_mode = [r["mode"] for r in res.limits if r.get("mode") is not None]
+    assert len(per_mode) == len(set((r["mode"], r["name"]) for r in res.limits
+                                    if r.get("mode") is not None))
+
+
+def test_repeated_mode_name_refused(tmp_path):
+    text = MEASURED.replace('name = "idle"', 'name = "rated"')
+    with pytest.raises(InputError) as e:
+        load_run_case(_case(tmp_path, text))
+    assert "cycle.mode[1].name" in str(e.value) and "unique" in str(e.value)
