@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import copy
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from .brick import WASHCOAT_MODELS, Brick
@@ -61,6 +61,7 @@ class Case:
     exhaust: Stream
     file: str
     data: dict                     # the case as read (after --set overrides), for reports
+    overrides: list = field(default_factory=list)   # the --set assignments, as typed
 
 
 def read_toml(path: str | Path) -> dict:
@@ -343,4 +344,6 @@ def load_case(path: str | Path, sets: list[str] | None = None) -> Case:
     data = read_toml(path)
     for s in sets or []:
         data = apply_set(data, s, file)
-    return parse_case(data, file)
+    case = parse_case(data, file)
+    case.overrides = list(sets or [])
+    return case

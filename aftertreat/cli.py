@@ -50,6 +50,8 @@ def _build_parser() -> argparse.ArgumentParser:
                          "(default: a warning, and the rates are extrapolated)")
     rn.add_argument("--report", metavar="DIR", help="write tables, plots, sources, the case as "
                     "run and the safety cautions into DIR")
+    rn.add_argument("--move-old", action="store_true", help="when the --report folder exists "
+                    "and is not empty, move it aside (renamed with the time) instead of refusing")
     sz = sub.add_parser("size", help="find the smallest SCR and slip catalyst that meet every "
                         "limit of a duty-cycle case")
     sz.add_argument("case", help="case file (TOML) with [engine], [cycle], ... and [sizing]")
@@ -61,6 +63,8 @@ def _build_parser() -> argparse.ArgumentParser:
                          "(default: a warning, and the rates are extrapolated)")
     sz.add_argument("--report", metavar="DIR", help="write the sizing curves (CSV, PNG) and the "
                     "report of the sized design into DIR")
+    sz.add_argument("--move-old", action="store_true", help="when the --report folder exists "
+                    "and is not empty, move it aside (renamed with the time) instead of refusing")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
     pt.add_argument("case", help="case file (TOML)")
     pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
@@ -90,7 +94,7 @@ def main(argv: list[str] | None = None) -> int:
         set_strict_temperature_range(bool(getattr(args, "strict", False)))
         if getattr(args, "report", None):           # checked before any solving
             from .report import check_report_folder
-            check_report_folder(args.report)
+            check_report_folder(args.report, move_old=getattr(args, "move_old", False))
         if args.command == "run":
             return _run(args)
         if args.command == "size":
@@ -141,11 +145,29 @@ def _emit(args, result, write_report, print_human) -> None:
     """The report folder (--report), then one JSON object (--json) or the human tables."""
     from .output import SAFETY_NOTE, to_json
     if args.report:
-        write_report(result, args.report)
+        _write_report(args, lambda folder: write_report(result, folder))
     if args.json:
         print(to_json(result.to_json()))
     else:
         print_human(result, SAFETY_NOTE, args.report)
+
+
+def _write_report(args, write) -> None:
+    """``write(folder)`` into a staged folder that replaces ``args.report`` whole (see
+    :class:`aftertreat.report.StagedFolder`); say on stderr where an old report was moved."""
+    from .report import StagedFolder
+    staged = StagedFolder(args.report, move_old=getattr(args, "move_old", False))
+    with staged as folder:
+        write(folder)
+    if staged.moved_to is not None:
+        print(f"aftertreat: the earlier contents of {args.report} were moved to "
+              f"{staged.moved_to}", file=sys.stderr)
+
+
+def _say_overrides(con, case) -> None:
+    over = getattr(case, "overrides", [])
+    if over:
+        con.print("[yellow]--set overrides:[/yellow] " + escape("; ".join(over)))
 
 
 def _run(args) -> int:
@@ -181,9 +203,11 @@ def _run_transient(args, case) -> int:
     obj = steady.to_json() if steady is not None else trun.run_json()
     obj["transient"] = trun.summary()
     if args.report:
-        if steady is not None:
-            write_report(steady, args.report)
-        write_transient_report(trun, obj, args.report)
+        def both(folder):
+            if steady is not None:
+                write_report(steady, folder)
+            write_transient_report(trun, obj, folder, with_cycle=steady is not None)
+        _write_report(args, both)
     if args.json:
         print(to_json(obj))
     else:
@@ -205,6 +229,7 @@ def _print_transient(trun, s: dict, safety: str, report) -> None:
     case = trun.case
     if case.cycle is None:
         con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
+        _say_overrides(con, case)
     con.print(f"transient run: {s['source']}; {s['duration_s']:.0f} s in {s['steps']} steps; "
               f"dosing {case.dosing['method']}, control {s['dosing_control']}")
     wk = s["work_kWh"]
@@ -258,6 +283,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
     con = Console()
     case = res.case
     con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
+    _say_overrides(con, case)
     con.print(f"sizing with a design margin of {case.sizing['design_margin'] * 100:.0f} % on "
               f"every limit, at the aged activities of the case")
     t = Table(title="Sized train", box=box.SIMPLE_HEAD, pad_edge=False)
@@ -315,6 +341,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
     con = Console()
     case = result.case
     con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
+    _say_overrides(con, case)
     con.print(f"{case.engine.application}, {case.engine.rated_power_kW:.0f} kW"
               + (f" at {case.engine.rated_speed_rpm:.0f} rpm" if case.engine.rated_speed_rpm
                  else "") + f"; cycle {case.cycle.name}; dosing {case.dosing['method']}")
@@ -387,7 +414,7 @@ def _point(args) -> int:
     case = load_case(args.case, args.set)
     sol = case.train.solve(case.exhaust)
     if args.json:
-        print(to_json(point_dict(case.title, sol)))
+        print(to_json(dict(point_dict(case.title, sol), overrides=case.overrides)))
     else:
         _print_point(case, sol, SAFETY_NOTE)
     if not sol.converged:
@@ -402,6 +429,7 @@ def _print_point(case, sol, safety: str) -> None:
     from rich.table import Table
     con = Console()
     con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
+    _say_overrides(con, case)
     inl, out = sol.inlet, sol.outlet
     con.print(f"exhaust {inl.mass_flow * 3600:.0f} kg/h, {inl.T - 273.15:.1f} C, "
               f"{inl.p / 1e3:.1f} kPa; GHSV {sol.ghsv_per_h():.0f} 1/h (0 C, 101.325 kPa); "
@@ -438,32 +466,14 @@ def _print_point(case, sol, safety: str) -> None:
 def _sources(args) -> int:
     """Sources behind a case, without solving it."""
     from .case import load_case, read_toml
-    from .citations import MODEL_SOURCES
     data = read_toml(args.case)
     if "cycle" in data or "transient" in data:
         from .cyclecase import load_run_case
         case = load_run_case(args.case)
     else:
         case = load_case(args.case)
-    lines, seen = [], set()
-    for b in case.train.bricks:
-        for c in b.catalysts:
-            for line in c.citations():
-                if line not in seen:
-                    seen.add(line)
-                    lines.append(f"catalyst {c.key}: {line}")
-        for key in (b.sherwood, "shah_london_1978", "kays_london_1984", "rennels_2012",
-                    "cantera"):
-            if MODEL_SOURCES[key] not in seen:
-                seen.add(MODEL_SOURCES[key])
-                lines.append(f"model: {MODEL_SOURCES[key]}")
-    if getattr(case, "cycle", None) is not None:
-        lines.append(f"cycle {case.cycle.name}: {case.cycle.source} "
-                     f"(confidence: {case.cycle.confidence})")
-    if getattr(case, "transient", None) is not None and case.transient["trace"]:
-        lines.append(f"time trace {case.transient['trace']} (the case's own data)")
-    for ls in getattr(case, "limit_sets", []):
-        lines.append(f"limits {ls.name}: {ls.source} (confidence: {ls.confidence})")
+    from .citations import case_sources
+    lines = case_sources(case)
     print(f"Sources behind {case.title}:")
     for line in lines:
         print(f"  - {line}")

@@ -125,6 +125,8 @@ class RunCase:
     transient: dict | None = None
     #: warn when the train adds more than this % of the engine-out CO2e (cycle value)
     co2e_rise_warn_pct: float = CO2E_RISE_WARN_PCT
+    #: the --set assignments applied to the file, as typed (echoed in outputs and reports)
+    overrides: list[str] = field(default_factory=list)
 
     @property
     def n_modes(self) -> int:
@@ -395,4 +397,6 @@ def load_run_case(path, sets: list[str] | None = None) -> RunCase:
     data = read_toml(path)
     for s in sets or []:
         data = apply_set(data, s, file)
-    return parse_run_case(data, file)
+    case = parse_run_case(data, file)
+    case.overrides = list(sets or [])
+    return case

@@ -149,6 +149,7 @@ class CycleResult:
                 "bricks": [brick_dict(b) for b in s.bricks],
                 "warnings": s.warnings})
         return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
+                "overrides": list(getattr(self.case, "overrides", [])),
                 "cycle_name": self.case.cycle.name, "modes": modes, "cycle": self.cycle,
                 "engine_out_cycle": self.engine_out_cycle, "limits": self.limits,
                 "pass": self.passed, "converged": self.converged,

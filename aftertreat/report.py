@@ -9,7 +9,7 @@ from .output import SAFETY_NOTE, to_json, write_atomic
 from .errors import InputError
 
 __all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml",
-           "sources_text"]
+           "sources_text", "case_as_run_text", "check_report_folder", "StagedFolder"]
 
 
 def _toml_value(v) -> str:
@@ -54,16 +54,20 @@ def _csv(df) -> str:
     return df.to_csv(index=False, float_format="%.6g")
 
 
-def check_report_folder(folder: str | Path) -> None:
+def check_report_folder(folder: str | Path, move_old: bool = False) -> None:
     """Raise :class:`InputError` (key ``--report``) before any solving if ``folder`` cannot
-    hold a report: an existing file, or a folder whose nearest existing parent is not a
-    writable folder."""
+    hold a report: an existing file, an existing folder that is not empty (unless ``move_old``:
+    it will be moved aside), or a folder whose nearest existing parent is not writable."""
     import os
     path = Path(folder)
     if path.exists() and not path.is_dir():
         raise InputError("expected a folder for the report, and this is an existing file",
                          key="--report", value=str(folder))
-    up = path if path.exists() else path.parent
+    if path.is_dir() and any(path.iterdir()) and not move_old:
+        raise InputError("the folder exists and is not empty; nothing was written (choose a "
+                         "new folder, or add --move-old to move the existing one aside)",
+                         key="--report", value=str(folder))
+    up = path.parent                       # the report is staged beside the target
     while not up.exists() and up != up.parent:
         up = up.parent
     ok = up.is_dir()
@@ -78,12 +82,135 @@ def check_report_folder(folder: str | Path) -> None:
                          key="--report", value=str(folder))
 
 
-def write_report(result, folder: str | Path) -> list[Path]:
+class StagedFolder:
+    """A report folder written whole or not at all.
+
+    ``with StagedFolder(target) as tmp:`` gives a fresh hidden folder beside ``target``
+    (``.<name>.partial-XXXX``). When the block ends normally the folder is moved into place by
+    one rename: an empty ``target`` is replaced, a non-empty one is moved aside first to
+    ``<name>.old-<UTC time>`` when ``move_old`` (``moved_to`` says where), else refused. When
+    the block raises (an error, Ctrl-C) the hidden folder is removed, and ``target`` is
+    untouched. A hard kill can leave only the hidden ``.partial-`` folder, named as such.
+    """
+
+    def __init__(self, target: str | Path, move_old: bool = False):
+        self.target = Path(target)
+        self.move_old = move_old
+        self.moved_to: Path | None = None
+        self.path: Path | None = None
+
+    def __enter__(self) -> Path:
+        import tempfile
+        parent = self.target.parent
+        parent.mkdir(parents=True, exist_ok=True)
+        self.path = Path(tempfile.mkdtemp(prefix=f".{self.target.name}.partial-", dir=parent))
+        return self.path
+
+    def __exit__(self, kind, exc, tb) -> bool:
+        import os
+        import shutil
+        if kind is not None:
+            shutil.rmtree(self.path, ignore_errors=True)
+            return False
+        try:
+            os.chmod(self.path, 0o777 & ~_umask())     # mkdtemp makes 0700
+            t = self.target
+            if t.is_dir() and not any(t.iterdir()):
+                t.rmdir()
+            elif t.exists():
+                if not self.move_old:
+                    raise InputError("the folder exists and is not empty; nothing was "
+                                     "written", key="--report", value=str(t))
+                import datetime
+                stamp = datetime.datetime.now(datetime.timezone.utc).strftime("%Y%m%d-%H%M%S")
+                aside = t.with_name(f"{t.name}.old-{stamp}")
+                n = 1
+                while aside.exists():
+                    n += 1
+                    aside = t.with_name(f"{t.name}.old-{stamp}-{n}")
+                os.rename(t, aside)
+                self.moved_to = aside
+            os.rename(self.path, t)
+        except BaseException:
+            shutil.rmtree(self.path, ignore_errors=True)
+            raise
+        return False
+
+
+def _umask() -> int:
+    import os
+    m = os.umask(0)
+    os.umask(m)
+    return m
+
+
+def header_comments(file: str | Path) -> str:
+    """The comment block at the top of a case file (lines starting with ``#``, and blank lines
+    between them), as written; empty when the file has none or cannot be read."""
+    try:
+        lines = Path(file).read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return ""
+    out = []
+    for line in lines:
+        if line.lstrip().startswith("#") or not line.strip():
+            out.append(line.rstrip())
+        else:
+            break
+    while out and not out[-1]:
+        out.pop()
+    return "\n".join(out)
+
+
+def _portable(data: dict, case_file: str) -> dict:
+    """``data`` with the files it names (catalyst files, the time trace) made absolute, so the
+    case re-runs from the report folder."""
+    import copy
+    out = copy.deepcopy(data)
+    base = Path(case_file).resolve().parent
+
+    def fix(v):
+        if isinstance(v, str) and (v.endswith((".toml", ".csv")) or "/" in v):
+            p = Path(v)
+            if not p.is_absolute() and (base / p).exists():
+                return str((base / p).resolve())
+        return v
+    for b in out.get("brick", []) if isinstance(out.get("brick"), list) else []:
+        if isinstance(b, dict) and "catalyst" in b:
+            b["catalyst"] = fix(b["catalyst"])
+    tr = out.get("transient")
+    if isinstance(tr, dict) and "trace" in tr:
+        tr["trace"] = fix(tr["trace"])
+    return out
+
+
+def case_as_run_text(case, data: dict | None = None, how: str = "run") -> str:
+    """The case exactly as computed, as TOML: the case file's header comments, a block saying
+    how it was run (command, --set overrides, what sizing changed), then ``data`` (default: the
+    case as read after its overrides) with the files it names made absolute."""
+    import datetime
+    from . import __version__
+    data = case.data if data is None else data
+    head = header_comments(case.file)
+    when = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    over = getattr(case, "overrides", []) or []
+    lines = ([head, "#"] if head else []) + [
+        f"# ---- as computed by aftertreat {__version__} ({how}), {when}, from {case.file}",
+        "# --set overrides: " + ("; ".join(over) if over else "none") + " (applied below)"]
+    if how == "size":
+        lines.append("# sized design: brick lengths, diameters and the per-mode ANR below are "
+                     "the sizing's answer")
+    return "\n".join(lines) + "\n\n" + to_toml(_portable(data, case.file))
+
+
+def write_report(result, folder: str | Path, case_text: str | None = None) -> list[Path]:
     """Write the report of a :class:`~aftertreat.evaluate.CycleResult` into ``folder``.
 
     Files: ``summary.json`` (the ``aftertreat.run/1`` object), ``modes.csv``, ``limits.csv``,
     ``bricks.csv``, ``profiles.csv``, ``provenance.csv``, ``outlet_vs_limits.png``,
-    ``profiles.png``, ``sources.txt``, ``case_as_run.toml``, ``SAFETY.txt``.
+    ``profiles.png``, ``sources.txt``, ``case_as_run.toml`` (``case_text``, default
+    :func:`case_as_run_text`), ``SAFETY.txt``. Write into a :class:`StagedFolder` so the
+    report appears whole or not at all.
     """
     import pandas as pd
     folder = Path(folder)
@@ -112,26 +239,19 @@ def write_report(result, folder: str | Path) -> list[Path]:
     put("outlet_vs_limits.png", _plot_outlet(result))
     put("profiles.png", _plot_profiles(result))
     put("sources.txt", sources_text(result))
-    put("case_as_run.toml", f"# {result.case.title}\n# as run (after any --set overrides)\n"
-        + to_toml(result.case.data))
+    put("case_as_run.toml", case_text if case_text is not None
+        else case_as_run_text(result.case))
     put("SAFETY.txt", SAFETY_NOTE + "\n")
     return written
 
 
 def sources_text(result) -> str:
-    """The sources behind a duty-cycle result: catalysts, correlations, cycle, limit sets."""
-    lines = [f"Sources behind: {result.case.title}", ""]
-    seen = set()
-    for m in result.modes:
-        for s in m.solution.sources():
-            if s not in seen:
-                seen.add(s)
-                lines.append(f"- {s}")
-    cyc = result.case.cycle
-    lines.append(f"- Duty cycle {cyc.name}: {getattr(cyc, 'source', '')} "
-                 f"(confidence: {getattr(cyc, 'confidence', '')})")
-    for ls in result.case.limit_sets:
-        lines.append(f"- Limit set {getattr(ls, 'name', ls)}: {getattr(ls, 'source', '')}")
+    """The sources behind a result (duty-cycle, sizing or transient): the case's sources
+    (:func:`aftertreat.citations.case_sources`) for the train that was computed."""
+    from .citations import case_sources
+    case = result.case
+    lines = [f"Sources behind: {case.title}", ""]
+    lines += [f"- {s}" for s in case_sources(case, getattr(result, "train", None))]
     lines += ["", "Every kinetic parameter and its provenance: provenance.csv.",
               "Each limit row names its source and confidence: limits.csv."]
     return "\n".join(lines) + "\n"
@@ -215,7 +335,8 @@ def write_size_report(res, folder: str | Path) -> list[Path]:
     ``sizing_curves.png``, ``margins.csv``, and the full run report of the sized design."""
     import pandas as pd
     folder = Path(folder)
-    written = write_report(res.run, folder)
+    written = write_report(res.run, folder, case_text=case_as_run_text(
+        res.case, res.sized_data(), how="size"))
     for name, text in (("size.json", to_json(res.to_json()) + "\n"),
                        ("sizing_curves.csv", _csv(res.curve_table())),
                        ("margins.csv", _csv(pd.DataFrame(res.margins))),
@@ -254,10 +375,15 @@ def _plot_curves(res) -> bytes:
     return _png(fig)
 
 
-def write_transient_report(trun, run_obj: dict, folder: str | Path) -> list[Path]:
+def write_transient_report(trun, run_obj: dict, folder: str | Path,
+                           with_cycle: bool = False) -> list[Path]:
     """Write a transient run into ``folder``: ``transient.csv`` (the time series, units in the
     column names), ``transient.png``, ``summary.json`` (the run object with its ``transient``
-    section), ``case_as_run.toml`` and ``SAFETY.txt``."""
+    section) and the limit rows over the run. Without a cycle report beside it
+    (``with_cycle`` false) it also writes what a cycle report has: ``limits.csv`` (here the
+    rows over the run), ``sources.txt``, ``provenance.csv``, ``case_as_run.toml`` and
+    ``SAFETY.txt``; with one, the run's rows go to ``transient_limits.csv``."""
+    import pandas as pd
     folder = Path(folder)
     written = []
 
@@ -268,8 +394,14 @@ def write_transient_report(trun, run_obj: dict, folder: str | Path) -> list[Path
     put("transient.csv", _csv(trun.table()))
     put("transient.png", _plot_transient(trun))
     put("summary.json", to_json(run_obj) + "\n")
-    put("case_as_run.toml", f"# {trun.case.title}\n# as run (after any --set overrides)\n"
-        + to_toml(trun.case.data))
+    lim = _csv(pd.DataFrame(trun.summary()["limits"]))
+    if with_cycle:
+        put("transient_limits.csv", lim)
+        return written
+    put("limits.csv", lim)
+    put("sources.txt", sources_text(trun))
+    put("provenance.csv", _csv(trun.train.provenance()))
+    put("case_as_run.toml", case_as_run_text(trun.case))
     put("SAFETY.txt", SAFETY_NOTE + "\n")
     return written
 

@@ -90,6 +90,7 @@ class SizingResult:
     def to_json(self) -> dict:
         """The ``aftertreat.size/1`` object."""
         return {"schema": "aftertreat.size/1", "case": self.case.title,
+                "overrides": list(getattr(self.case, "overrides", [])),
                 "bricks": self.brick_rows(), "total_volume_L": self.train.volume * 1e3,
                 "binding": self.binding, "feasible": self.feasible, "problems": self.problems,
                 "suggestions": self.suggestions, "margins": self.margins,
@@ -101,9 +102,36 @@ class SizingResult:
                 "train_solves": self.train_solves, "solve_s": self.seconds,
                 "run": self.run.to_json()}
 
+    def sized_data(self) -> dict:
+        """The case data (as read, after its overrides) with the sized design put in: every
+        brick's length and diameter, and the per-mode ANR when the sizing chose it. Running
+        this data reproduces :attr:`run`."""
+        import copy
+        data = copy.deepcopy(self.case.data)
+        for b, row in zip(self.train.bricks, data["brick"]):
+            for key in ("length", "length_mm", "diameter", "diameter_mm"):
+                row.pop(key, None)
+            row["length"] = f"{_mm_text(b.length)} mm"
+            row["diameter"] = f"{_mm_text(b.diameter)} mm"
+        if self.case.dosing["method"] != "none":
+            data.setdefault("dosing", {})["ANR"] = [float(a) for a in self.case.dosing["ANR"]]
+        return data
+
     def curve_table(self):
         import pandas as pd
         return pd.DataFrame(self.curves).sort_values(["SCR_length_mm", "ASC_length_mm"])
+
+
+def _mm_text(length_m: float) -> str:
+    """A length [m] as millimetres, with as few digits as read back (units.to_si) to the same
+    length within 1e-12 (a length differs from its text by round-off only)."""
+    from .units import to_si
+    mm = length_m * 1e3
+    for digits in range(6, 18):
+        text = f"{mm:.{digits}g}"
+        if abs(to_si(f"{text} mm", "m") - length_m) <= 1e-12 * abs(length_m):
+            return text
+    return repr(mm)
 
 
 def _brick_rows(train) -> list[dict]:

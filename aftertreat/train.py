@@ -41,6 +41,35 @@ class Train:
         """Total brick volume [m^3]."""
         return sum(b.volume for b in self.bricks)
 
+    def provenance(self):
+        """Every kinetic parameter of the train's catalysts with its provenance, as a table
+        (one block per catalyst, in flow order)."""
+        import pandas as pd
+        rows, seen = [], set()
+        for b in self.bricks:
+            for c in b.catalysts:
+                if c.key not in seen:
+                    seen.add(c.key)
+                    rows += c.provenance_table()
+        return pd.DataFrame(rows)
+
+    def sources(self) -> list[str]:
+        """Citations of the catalysts and correlations this train's model uses: each catalyst's
+        own sources, then the transfer, pressure-loss and property correlations."""
+        from .citations import MODEL_SOURCES
+        out: list[str] = []
+        for b in self.bricks:
+            for c in b.catalysts:
+                out += c.citations()
+        keys = [b.sherwood for b in self.bricks]
+        keys += ["shah_london_1978", "kays_london_1984", "rennels_2012", "cantera"]
+        if any(b.washcoat == "effectiveness" for b in self.bricks):
+            keys.append("thiele_1939")
+        if any(b.apparent_friction for b in self.bricks):
+            keys.append("shah_1978")
+        out += [MODEL_SOURCES[k] for k in keys]
+        return list(dict.fromkeys(out))
+
     def solve(self, inlet: Stream, *, settings: SolverSettings | None = None,
               guess: "TrainSolution | None" = None) -> "TrainSolution":
         """Steady state of the train fed by ``inlet`` (the stream at the first brick's face).
@@ -188,33 +217,10 @@ class TrainSolution:
         return self.profiles()
 
     def provenance(self):
-        """Every kinetic parameter behind this result with its provenance, as a table."""
-        import pandas as pd
-        rows, seen = [], set()
-        for s in self.bricks:
-            for c in s.brick.catalysts:
-                if c.key not in seen:
-                    seen.add(c.key)
-                    rows += c.provenance_table()
-        return pd.DataFrame(rows)
+        """Every kinetic parameter behind this result with its provenance
+        (:meth:`Train.provenance`)."""
+        return Train([b.brick for b in self.bricks]).provenance()
 
     def sources(self) -> list[str]:
-        """Citations of the catalysts and correlations used."""
-        out, seen = [], set()
-        for s in self.bricks:
-            for c in s.brick.catalysts:
-                for line in c.citations():
-                    if line not in seen:
-                        seen.add(line)
-                        out.append(line)
-        from .citations import MODEL_SOURCES
-        for b in {s.brick.sherwood for s in self.bricks}:
-            out.append(MODEL_SOURCES[b])
-        keys = ["shah_london_1978", "kays_london_1984", "rennels_2012", "cantera"]
-        if any(s.brick.washcoat == "effectiveness" for s in self.bricks):
-            keys.append("thiele_1939")
-        if any(s.brick.apparent_friction for s in self.bricks):
-            keys.append("shah_1978")
-        for key in keys:
-            out.append(MODEL_SOURCES[key])
-        return out
+        """Citations of the catalysts and correlations used (:meth:`Train.sources`)."""
+        return Train([b.brick for b in self.bricks]).sources()

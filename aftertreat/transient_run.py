@@ -271,6 +271,7 @@ class TransientRun:
     reagent_mol_s: np.ndarray          # [N, nspecies] gas products of the dosed reagent
     anr_cmd: np.ndarray                # the ANR the control asked for [N]
     seconds: float
+    train: object = None               # the Train that was run (the case's, or a what-if's)
 
     # -- per-step quantities --------------------------------------------------------------------
     def _outlet_streams(self) -> list[Stream]:
@@ -408,7 +409,7 @@ class TransientRun:
                    "limit": x.get("limit"), "unit": x["unit"], "pass": x["pass"],
                    "source": x.get("source", "")} for x in s["limits"]]
         return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
-                "cycle_name": None, "modes": [], "cycle": cyc, "limits": limits,
+                "overrides": list(getattr(self.case, "overrides", [])), "cycle_name": None, "modes": [], "cycle": cyc, "limits": limits,
                 "pass": all(x["pass"] for x in limits) and s["converged"],
                 "converged": s["converged"], "GWP_set": self.case.gwp_set, "warnings": [],
                 "solve_s": s["solve_s"]}
@@ -435,4 +436,4 @@ def run_transient(case, *, train=None, progress=None,
     res = simulate(train, tl.t_s, lambda i, s: inlet0 if i == 0 else doser(i, s), state=state,
                    settings=st, progress=progress)
     return TransientRun(case=case, timeline=tl, result=res, reagent_mol_s=doser.reagent,
-                        anr_cmd=doser.anr_cmd, seconds=time.perf_counter() - t0)
+                        anr_cmd=doser.anr_cmd, seconds=time.perf_counter() - t0, train=train)

@@ -426,14 +426,11 @@ class CycleApp(App):
                        markers=[tm[i]]))
 
     def _show_sources(self) -> None:
-        from aftertreat.report import sources_text
+        from aftertreat.citations import case_sources
         s = self.session
-        if s.result is not None:
-            text = sources_text(s.result)
-        else:                                     # a trace case: no modes solved
-            text = "Sources behind these numbers:\n\n" + "\n".join(
-                f"- limit set {ls.name}: {ls.source} (confidence {ls.confidence})"
-                for ls in s.case.limit_sets)
+        train = getattr(s.result, "train", None) if s.result is not None else None
+        text = "Sources behind these numbers:\n\n" + "\n".join(
+            f"- {line}" for line in case_sources(s.case, train))
         text += ("\nParameter provenance of each catalyst: aftertreat catalysts KEY\n\n"
                  + SAFETY_NOTE)
         self.query_one("#sources-text", Static).update(Text(text))
@@ -620,11 +617,12 @@ class CycleApp(App):
             return
         folder = self.case_path.with_name(f"{self.case_path.stem}_report")
         try:
-            s.export_report(folder)
+            old = s.export_report(folder)
         except (InputError, OSError) as exc:
             self._status(f"report not written: {exc}", error=True)
             return
-        self._status(f"report written to {folder}/")
+        self._status(f"report written to {folder}/"
+                     + (f" (the earlier one moved to {old.name}/)" if old else ""))
 
 
 def main(case_path: str) -> int:

@@ -165,10 +165,17 @@ class Session:
         write_atomic(target, head + to_toml(self.data))
         return target, backup
 
-    def export_report(self, folder: str | Path) -> Path:
-        """Write the report of the current result (as ``aftertreat run --report``)."""
-        from aftertreat.report import write_report
+    def export_report(self, folder: str | Path) -> Path | None:
+        """Write the report of the current result (as ``aftertreat run --report``), whole or
+        not at all; an earlier report in ``folder`` is moved aside, never overwritten. Returns
+        where the earlier one went (None if there was none)."""
+        from aftertreat.report import StagedFolder, case_as_run_text, write_report
         if self.result is None:
             raise InputError("nothing solved yet", key="report")
-        write_report(self.result, folder)
-        return Path(folder)
+        staged = StagedFolder(folder, move_old=True)
+        with staged as tmp:
+            write_report(self.result, tmp, case_text=case_as_run_text(
+                self.result.case, how="terminal UI" + (
+                    ", edits: " + "; ".join(self.whatif.assignments)
+                    if self.whatif.assignments else "")))
+        return staged.moved_to
