@@ -311,6 +311,9 @@ def _print_size(res, safety: str, report: str | None) -> None:
               f"N2O {c['N2O_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppmvd_max']:.2f} "
               f"ppmvd as measured; back-pressure {dp:.2f} kPa (worst mode)"
               + (f"; cost {res.cost:.1f}" if res.cost is not None else ""))
+    con.print(_n2o_made(res.run))
+    if res.objective:
+        con.print(f"objective: {escape(res.objective)}")
     if res.feasible:
         con.print("[green]feasible[/green]; binding limits: " + ("; ".join(res.binding) or
                                                                  "none within 1.5 %"))
@@ -333,6 +336,15 @@ def _print_size(res, safety: str, report: str | None) -> None:
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
+
+
+def _n2o_made(result) -> str:
+    """One line on the N2O the train made (cycle g/kWh and as CO2e)."""
+    t = result.train_n2o()
+    rise = t["GHG_CO2e_rise_pct"]
+    return (f"N2O made in the train {t['N2O_made_g_kWh']:+.3f} g/kWh = "
+            f"{t['N2O_made_CO2e_g_kWh']:+.0f} g CO2e/kWh (GWP100 {t['GWP_set']})"
+            + (f", {rise:+.1f} % on the engine-out CO2e" if rise is not None else ""))
 
 
 def _print_run(result, safety: str, report: str | None) -> None:
@@ -363,9 +375,10 @@ def _print_run(result, safety: str, report: str | None) -> None:
     con.print(f"cycle NOx {eo['NOx_g_kWh']:.2f} -> {c['NOx_g_kWh']:.3f} g/kWh, "
               f"N2O {eo['N2O_g_kWh']:.3f} -> {c['N2O_g_kWh']:.3f} g/kWh "
               f"({c['N2O_CO2e_g_kWh']:.0f} g CO2e/kWh, GWP {case.gwp_set}), "
-              f"NH3 {c['NH3_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppm_max']:.1f} ppm wet")
+              f"NH3 {c['NH3_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppm_wet_max']:.1f} ppm wet")
     con.print(f"greenhouse gases {eo['GHG_CO2e_g_kWh']:.0f} -> {c['GHG_CO2e_g_kWh']:.0f} "
-              "g CO2e/kWh (CO2 from carbon fuels and reagent + N2O as CO2e)")
+              "g CO2e/kWh (CO2 from carbon fuels and reagent + N2O as CO2e); "
+              + _n2o_made(result))
     if result.limits:
         L = Table(title="Limits (sources: limits.csv of the report, or --json)",
                   box=box.SIMPLE_HEAD, pad_edge=False)

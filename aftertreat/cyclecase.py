@@ -49,6 +49,11 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     cost_per_L = { vanadia_extruded = 0.05, asc_dual_layer = 0.4 }
     choose_ANR = true                  # with dosing: ANR per mode to the NOx target + excess,
     ANR_excess = 0.05                  # at most the [dosing] ANR of the case
+    N2O_max_g_kWh = 0.5                # caps for the sizing only (cycle values, with the
+    CO2e_max_g_kWh = 300               # design margin): N2O, CO2 + N2O as CO2e, and the CO2e
+    CO2e_rise_max_pct = 10             # the train may add, % of the engine-out value
+    objective = "volume"               # or "CO2e": least CO2e within the smallest volume
+    volume_allowance_pct = 0           # (+ this %), see aftertreat.sizing
     [sizing.build.extruded]            # buildable brick lengths per substrate kind (extruded,
     step_mm = 50                       # plate, coated): whole steps within [min_mm, max_mm];
     min_mm = 200                       # defaults in aftertreat/data/build_rules.toml
@@ -94,7 +99,10 @@ CO2E_RISE_WARN_PCT = 10.0
 _SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
            "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
            "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter",
-           "build"}
+           "build", "N2O_max_g_kWh", "CO2e_max_g_kWh", "CO2e_rise_max_pct", "objective",
+           "volume_allowance_pct"}
+#: what ``aftertreat size`` minimises ([sizing] objective)
+SIZING_OBJECTIVES = ("volume", "CO2e")
 
 
 @dataclass
@@ -317,7 +325,9 @@ def _sizing(data, file) -> dict:
               "max_length_mm": (10.0, 1e5), "max_diameter_mm": (10.0, 1e5),
               "face_velocity_m_s": (0.1, 100.0), "scr_length_max_mm": (10.0, 1e5),
               "asc_length_max_mm": (10.0, 1e5), "ghsv_per_h": (100.0, 1e6),
-              "length_to_diameter": (0.05, 20.0)}
+              "length_to_diameter": (0.05, 20.0), "N2O_max_g_kWh": (0.0, 100.0),
+              "CO2e_max_g_kWh": (0.0, 1e5), "CO2e_rise_max_pct": (0.0, 1000.0),
+              "volume_allowance_pct": (0.0, 100.0)}
     for k, (lo, hi) in bounds.items():
         if k in s:
             v = s[k]
@@ -338,6 +348,16 @@ def _sizing(data, file) -> dict:
                 raise InputError("expected true or false", key=f"sizing.{flag}", value=s[flag],
                                  file=file)
             out[flag] = s[flag]
+    obj = s.get("objective", "volume")
+    if obj not in SIZING_OBJECTIVES:
+        raise InputError("expected one of " + ", ".join(SIZING_OBJECTIVES)
+                         + did_you_mean(obj, SIZING_OBJECTIVES), key="sizing.objective",
+                         value=obj, file=file)
+    out["objective"] = obj
+    if "volume_allowance_pct" in out and obj != "CO2e":
+        raise InputError("volume_allowance_pct belongs to objective = \"CO2e\"",
+                         key="sizing.volume_allowance_pct", value=out["volume_allowance_pct"],
+                         file=file)
     if "ANR_excess" in s:
         v = s["ANR_excess"]
         if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 <= v <= 0.5:

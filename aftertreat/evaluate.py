@@ -136,8 +136,19 @@ class CycleResult:
         """The per-mode table (:meth:`mode_table`)."""
         return self.mode_table()
 
+    def train_n2o(self) -> dict:
+        """The N2O the train made over the cycle and what it does to the greenhouse-gas total
+        (cycle values, GWP100 of the case's set): outlet minus engine-out."""
+        c, e = self.cycle, self.engine_out_cycle
+        g0, g1 = e["GHG_CO2e_g_kWh"], c["GHG_CO2e_g_kWh"]
+        return {"N2O_made_g_kWh": c["N2O_g_kWh"] - e["N2O_g_kWh"],
+                "N2O_made_CO2e_g_kWh": c["N2O_CO2e_g_kWh"] - e["N2O_CO2e_g_kWh"],
+                "GHG_CO2e_engine_out_g_kWh": g0, "GHG_CO2e_g_kWh": g1,
+                "GHG_CO2e_rise_pct": 100.0 * (g1 / g0 - 1.0) if g0 > 0 else None,
+                "GWP_set": self.case.gwp_set}
+
     def to_json(self) -> dict:
-        """The ``aftertreat.run/1`` object (CONVENTIONS.md)."""
+        """The ``aftertreat.run/1`` object (docs/conventions.md)."""
         modes = []
         for m in self.modes:
             s = m.solution
@@ -151,7 +162,8 @@ class CycleResult:
         return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
                 "overrides": list(getattr(self.case, "overrides", [])),
                 "cycle_name": self.case.cycle.name, "modes": modes, "cycle": self.cycle,
-                "engine_out_cycle": self.engine_out_cycle, "limits": self.limits,
+                "engine_out_cycle": self.engine_out_cycle, "train_N2O": self.train_n2o(),
+                "limits": self.limits,
                 "pass": self.passed, "converged": self.converged,
                 "GHSV_normal_conditions": "0 C, 101.325 kPa", "GWP_set": self.case.gwp_set,
                 "warnings": self.warnings, "solve_s": self.seconds}
@@ -264,6 +276,16 @@ def mode_labels(case, powers_kW) -> list[str]:
     return labels
 
 
+def engine_out_cycle(case, inlets=None) -> dict:
+    """Cycle values of the engine-out exhaust (no train): :func:`aftertreat.limits.
+    cycle_values` of every mode's engine-out stream, with the case's GWP set."""
+    from . import limits
+    inlets = mode_inlets(case) if inlets is None else inlets
+    heads = [mode_emissions(m.name, m.weight, x[0], bool(getattr(m, "cap_exempt", False)),
+                            x[1], x[2]) for m, x in zip(case.cycle.modes, inlets)]
+    return limits.cycle_values(heads, gwp_set=case.gwp_set)
+
+
 #: NH3 slip [ppmvd] above which a case without any NH3 limit is warned about: twice the odour
 #: threshold of about 5 ppm (common practice: SCR slip is usually held below 10 ppm)
 NH3_UNLIMITED_WARN_PPMVD = 10.0
@@ -306,7 +328,7 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
     tail = [_mode_emissions(m, limits) for m in results]
     head = [_mode_emissions(m, limits, m.engine_out) for m in results]
     cyc = limits.cycle_values(tail, gwp_set=case.gwp_set)
-    cyc["NH3_slip_ppm_max"] = max(m.outlet.ppm("NH3") for m in results)
+    cyc["NH3_slip_ppm_wet_max"] = max(m.outlet.ppm("NH3") for m in results)
     cyc["NH3_slip_ppmvd_max"] = max(m.emissions()["ppmvd"]["NH3"] for m in results)
     eo_cyc = limits.cycle_values(head, gwp_set=case.gwp_set)
     rows = []

@@ -83,6 +83,7 @@ class SizingResult:
     continuous: list[dict] = field(default_factory=list)    # brick rows of the continuous optimum
     build_rules: list[str] = field(default_factory=list)    # the rules applied, in words
     diameter_reason: str = ""
+    objective: str = ""                # what was minimised, and what that search did
 
     def brick_rows(self) -> list[dict]:
         return _brick_rows(self.train)
@@ -96,7 +97,8 @@ class SizingResult:
                 "suggestions": self.suggestions, "margins": self.margins,
                 "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
                 "continuous_optimum": self.continuous, "build_rules": self.build_rules,
-                "diameter_reason": self.diameter_reason,
+                "diameter_reason": self.diameter_reason, "objective": self.objective,
+                "train_N2O": self.run.train_n2o(),
                 "ANR_per_mode": {m.name: float(m.anr) for m in self.run.modes},
                 "curves": self.curves, "evaluations": self.evaluations,
                 "train_solves": self.train_solves, "solve_s": self.seconds,
@@ -464,6 +466,34 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     return np.minimum(np.maximum(anr, own), case.dosing["ANR"])
 
 
+#: the [sizing] caps and the limit-vocabulary quantity each one becomes
+_CAPS = (("N2O_max_g_kWh", "N2O_g_kWh", "N2O over the cycle (sizing cap)"),
+         ("CO2e_max_g_kWh", "GHG_CO2e_g_kWh", "CO2 + N2O as CO2e over the cycle (sizing cap)"))
+
+
+def with_sizing_caps(case):
+    """``case`` with its ``[sizing]`` greenhouse caps added as a limit set "sizing caps" (cycle
+    g/kWh rows, checked like every limit, with the design margin): ``N2O_max_g_kWh``,
+    ``CO2e_max_g_kWh`` and ``CO2e_rise_max_pct``, which caps GHG_CO2e at the engine-out value
+    x (1 + pct/100), i.e. the CO2e the train may add (its N2O, and CO2 of a urea reagent)."""
+    from .limits import custom_limits
+    sz = case.sizing
+    rows = [{"name": name, "quantity": q, "value": sz[key], "unit": "g/kWh",
+             "source": f"sizing.{key} of the case"} for key, q, name in _CAPS if key in sz]
+    if "CO2e_rise_max_pct" in sz:
+        from .evaluate import engine_out_cycle
+        g0 = engine_out_cycle(case)["GHG_CO2e_g_kWh"]
+        pct = sz["CO2e_rise_max_pct"]
+        rows.append({"name": f"CO2e added by the train at most {pct:g} % (sizing cap)",
+                     "quantity": "GHG_CO2e_g_kWh", "value": g0 * (1.0 + pct / 100.0),
+                     "unit": "g/kWh", "source": f"sizing.CO2e_rise_max_pct of the case "
+                     f"({pct:g} % over the engine-out {g0:.1f} g/kWh)"})
+    if not rows:
+        return case
+    caps = custom_limits(rows, file=case.file, name="sizing caps")
+    return dataclasses.replace(case, limit_sets=list(case.limit_sets) + [caps])
+
+
 def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     """Size the SCR and slip-catalyst sections of ``case`` (a duty-cycle case with ``[sizing]``).
 
@@ -484,6 +514,7 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
                          "(run it with 'aftertreat run', or add a cycle)", key="transient.trace",
                          file=case.file)
     t0 = time.perf_counter()
+    case = with_sizing_caps(case)
     sz = case.sizing
     m = sz["design_margin"]
     if case.dosing["method"] != "none" and sz.get("choose_ANR", True):
@@ -681,6 +712,12 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     cont_res = designs(L_scr, L_asc)
     continuous = designs.train(L_scr, L_asc)
     train, res = _round_up(designs, continuous, cont_res, rules, nox, m, has_asc)
+    objective_note = "smallest buildable volume (sizing.objective)"
+    if sz.get("objective") == "CO2e" and feasible:
+        if progress:
+            progress("least CO2e within the volume")
+        train, res, objective_note = _least_co2e(designs, coarse, train, res, rules, m, sz,
+                                                 max_total)
     # every other limit, the back-pressure budget and the envelope, on the result
     margins = []
     for r in res.limits:
@@ -736,7 +773,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                         train_solves=designs.solves + coarse.solves,
                         seconds=time.perf_counter() - t0, cost=cost,
                         continuous=_brick_rows(continuous),
-                        build_rules=[rules[k].describe() for k in used])
+                        build_rules=[rules[k].describe() for k in used],
+                        objective=objective_note)
 
 
 def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc):
@@ -776,6 +814,89 @@ def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc):
         if not grown:
             break
     return train, res
+
+
+def _complies(res, margin: float, sz: dict, max_total_mm) -> bool:
+    """Every limit with its margin, the back-pressure budget and the length envelope."""
+    if not res.converged or _worst(res, ("",), margin) > _ACCEPT:
+        return False
+    if sz.get("dp_max_kPa") and max(m.solution.dp_Pa for m in res.modes) / 1e3 \
+            > sz["dp_max_kPa"]:
+        return False
+    total = sum(b.length for b in res.train.bricks)
+    return not (max_total_mm and total > max_total_mm / 1e3 * (1 + 1e-9))
+
+
+def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz: dict,
+                max_total_mm, max_moves: int = 12):
+    """``[sizing] objective = "CO2e"``: from the smallest buildable train, move catalyst
+    between the sized bricks one buildable step at a time (one brick up and another down, or
+    one brick down) while the total volume stays within that train's volume x (1 +
+    ``volume_allowance_pct``/100) (or one brick up, when the allowance leaves room), every
+    limit, the back-pressure budget and the envelope still hold, and the cycle CO2e (CO2 + N2O
+    as CO2e) falls; the best move is taken each time. Moves are screened on the coarse search
+    grid (``coarse``) and the best one is confirmed on the case's grid before it is taken.
+    Returns (train, result, a note of what it did)."""
+    V_max = train.volume * (1.0 + sz.get("volume_allowance_pct", 0.0) / 100.0) * (1 + 1e-9)
+    sized = designs.scr + designs.asc
+    best, best_res = train, res
+    g_start = res.cycle["GHG_CO2e_g_kWh"]
+    moves = 0
+    like = None                          # a coarse result to warm-start the screening from
+    for _ in range(max_moves):
+        b = best.bricks
+
+        def stepped(i, up):
+            rule = rules[b[i].substrate.kind]
+            L = rule.next_up(b[i].length) if up else rule.round_down(
+                b[i].length - rule.step_mm / 1e3 * (1 - 1e-6))
+            lo, hi = designs.limits.get(i, (rule.shortest_m, rule.longest_m))
+            return L if lo - 1e-12 <= L <= hi + 1e-12 and abs(L - b[i].length) > 1e-9 else None
+
+        cands = []
+        for i in sized:
+            for up in (True, False):
+                Li = stepped(i, up)
+                if Li is None:
+                    continue
+                cands.append({i: Li})
+                if up:
+                    for j in sized:
+                        Lj = stepped(j, False) if j != i else None
+                        if Lj is not None:
+                            cands.append({i: Li, j: Lj})
+        trial = []
+        for c in cands:
+            t = Train([dataclasses.replace(x, length=c.get(k, x.length))
+                       for k, x in enumerate(b)])
+            if t.volume <= V_max:
+                trial.append(t)
+        screened = []
+        for t in trial:
+            tc = Train([dataclasses.replace(x, cells=min(x.cells, coarse.grid[0]),
+                                            nodes_per_layer=min(x.nodes_per_layer,
+                                                                coarse.grid[1]))
+                        for x in t.bricks])
+            r = coarse.run(tc, like=like)
+            if r.converged and like is None:
+                like = r
+            if _complies(r, margin, sz, max_total_mm):
+                screened.append((r.cycle["GHG_CO2e_g_kWh"], len(screened), t))
+        improved = None
+        for _, _, t in sorted(screened)[:3]:          # confirm on the case's grid
+            r = designs.run(t, like=best_res)
+            if _complies(r, margin, sz, max_total_mm) and \
+                    r.cycle["GHG_CO2e_g_kWh"] < best_res.cycle["GHG_CO2e_g_kWh"] - 1e-9:
+                improved = (t, r)
+                break
+        if improved is None:
+            break
+        best, best_res = improved
+        moves += 1
+    g_end = best_res.cycle["GHG_CO2e_g_kWh"]
+    note = (f"least CO2e within {V_max * 1e3:.0f} L (sizing.objective): {moves} step(s) from "
+            f"the smallest train, {g_start:.1f} -> {g_end:.1f} g CO2e/kWh")
+    return best, best_res, note
 
 
 def _failing(res, quantities, margin) -> list[str]:

@@ -401,7 +401,7 @@ class TransientRun:
         cyc = {k: s[k] for k in ("NOx_g_kWh", "N2O_g_kWh", "NH3_g_kWh")}
         r = self.result
         ppm = r.outlet_F[:, INDEX["NH3"]] / r.outlet_F.sum(axis=1) * 1e6
-        cyc["NH3_slip_ppm_max"] = float(ppm.max())
+        cyc["NH3_slip_ppm_wet_max"] = float(ppm.max())
         from .emissions import GWP100
         gwp = GWP100[self.case.gwp_set]
         cyc["N2O_CO2e_g_kWh"] = None if s["N2O_g_kWh"] is None else gwp * s["N2O_g_kWh"]

@@ -50,7 +50,7 @@ def test_run_json_contract(turbine):
         for b in m["bricks"]:
             for k in ("name", "role", "volume_L", "T_out_C", "dp_kPa", "outlet"):
                 assert k in b
-    for k in ("NOx_g_kWh", "N2O_g_kWh", "NH3_g_kWh", "N2O_CO2e_g_kWh", "NH3_slip_ppm_max"):
+    for k in ("NOx_g_kWh", "N2O_g_kWh", "NH3_g_kWh", "N2O_CO2e_g_kWh", "NH3_slip_ppm_wet_max"):
         assert k in o["cycle"]
     for r in o["limits"]:
         for k in ("name", "value", "limit", "unit", "pass", "source"):
