@@ -244,16 +244,17 @@ def _print_transient(trun, s: dict, safety: str, report) -> None:
     con.print(f"NH3 account (mol): in {acc['in_mol']:.2f} = out {acc['out_mol']:.2f} + "
               f"destroyed {acc['reacted_mol']:.2f} + stored {acc['stored_change_mol']:+.2f} "
               f"(imbalance {acc['imbalance_mol']:.1e})")
-    if s["limits"]:
+    checks = trun.limit_checks()
+    if checks:
         L = Table(title="Limits over the run", box=box.SIMPLE_HEAD, pad_edge=False)
         for col in ("limit", "value / peak", "mean", "limit", "unit", "time above s", "result"):
             L.add_column(col, justify="left" if col in ("limit", "unit") else "right")
-        for r in s["limits"]:
-            L.add_row(r["name"], _num(r.get("value", r.get("peak"))), _num(r.get("mean")),
-                      _num(r.get("limit")), _unit(r),
-                      f"{r['time_above_s']:.0f}" if "time_above_s" in r else "-",
-                      ("[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
-                      if r.get("limit") is not None else "n/a")
+        for r in checks:
+            L.add_row(r.name, _num(r.value if r.value is not None else r.peak), _num(r.mean),
+                      _num(r.limit), r.basis,
+                      f"{r.time_above_s:.0f}" if r.time_above_s is not None else "-",
+                      ("[green]pass[/]" if r.passed else "[red]FAIL[/]")
+                      if r.limit is not None else "n/a")
         con.print(L)
     rtf = s.get("real_time_factor")
     con.print(f"solved in {s['solve_s']:.1f} s" + (f" ({rtf:.0f} x real time)" if rtf else "")
@@ -327,9 +328,10 @@ def _print_size(res, safety: str, report: str | None) -> None:
               pad_edge=False)
     for col in ("limit", "mode", "value", "limit", "unit", "margin %"):
         L.add_column(col, justify="right" if col in ("value", "limit", "margin %") else "left")
-    for r in res.margins:
-        L.add_row(_limit_name(r), r.get("mode") or "cycle", _num(r["value"]), _num(r["limit"]),
-                  _unit(r), _num(r["margin_pct"]))
+    for x in res.margins:
+        r = x.check
+        L.add_row(r.row_name, r.mode or "cycle", _num(r.value), _num(r.limit), r.basis,
+                  _num(x.margin_pct))
     con.print(L)
     con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
               f"{res.seconds:.1f} s")
@@ -385,11 +387,11 @@ def _print_run(result, safety: str, report: str | None) -> None:
         for col in ("limit", "mode", "value", "limit", "unit", "result"):
             L.add_column(col, justify="right" if col in ("value", "limit") else "left")
         for r in result.limits:
-            L.add_row(_limit_name(r) + (" *" if r.get("confidence") == "from memory" else ""),
-                      r.get("mode") or "cycle", _num(r.get("value")), _num(r.get("limit")),
-                      _unit(r), "[green]pass[/]" if r["pass"] else "[red]FAIL[/]")
+            L.add_row(r.row_name + (" *" if r.confidence == "from memory" else ""),
+                      r.mode or "cycle", _num(r.value), _num(r.limit), r.basis,
+                      "[green]pass[/]" if r.passed else "[red]FAIL[/]")
         con.print(L)
-        if any(r.get("confidence") == "from memory" for r in result.limits):
+        if any(r.confidence == "from memory" for r in result.limits):
             con.print("* limit value recalled from memory, not read in the source: check it")
     verdict = "[green]PASSES[/]" if result.passed else "[red]DOES NOT PASS[/]"
     con.print(f"Overall: {verdict} every limit of the case (solved in {result.seconds:.1f} s)")
@@ -402,19 +404,6 @@ def _print_run(result, safety: str, report: str | None) -> None:
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
-
-
-def _limit_name(r: dict) -> str:
-    """A limit row's name without the ', mode X' suffix (the table has a mode column)."""
-    name, suffix = r["name"], f", mode {r.get('mode')}"
-    return name[: -len(suffix)] if r.get("mode") and name.endswith(suffix) else name
-
-
-def _unit(r: dict) -> str:
-    """A limit row's unit with its reference O2 (``ppmvd @15% O2``), so it is not read as the
-    as-measured value."""
-    o2 = r.get("o2_ref_pct")
-    return r["unit"] if o2 is None else f"{r['unit']} @{o2:g}% O2"
 
 
 def _num(v) -> str:

@@ -97,14 +97,14 @@ class CycleResult:
     modes: list[ModeResult]
     cycle: dict
     engine_out_cycle: dict
-    limits: list[dict]
+    limits: list            # aftertreat.limits.LimitCheck, one per check
     seconds: float
     warnings: list[str] = field(default_factory=list)
     train: object = None               # the train solved (the case's, or a what-if/sizing one)
 
     @property
     def passed(self) -> bool:
-        return all(r["pass"] for r in self.limits) and self.converged
+        return all(r.passed for r in self.limits) and self.converged
 
     @property
     def converged(self) -> bool:
@@ -130,7 +130,7 @@ class CycleResult:
 
     def limit_table(self):
         import pandas as pd
-        return pd.DataFrame(self.limits)
+        return pd.DataFrame([r.to_dict() for r in self.limits])
 
     def to_pandas(self):
         """The per-mode table (:meth:`mode_table`)."""
@@ -163,7 +163,7 @@ class CycleResult:
                 "overrides": list(getattr(self.case, "overrides", [])),
                 "cycle_name": self.case.cycle.name, "modes": modes, "cycle": self.cycle,
                 "engine_out_cycle": self.engine_out_cycle, "train_N2O": self.train_n2o(),
-                "limits": self.limits,
+                "limits": [r.to_dict() for r in self.limits],
                 "pass": self.passed, "converged": self.converged,
                 "GHSV_normal_conditions": "0 C, 101.325 kPa", "GWP_set": self.case.gwp_set,
                 "warnings": self.warnings, "solve_s": self.seconds}
@@ -340,7 +340,7 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
         if not m.solution.converged:
             warnings.append(f"mode '{m.name}': the solver did not converge; its numbers are "
                             "flagged")
-    if not any(r["quantity"].startswith("NH3") for r in rows) \
+    if not any(r.quantity.startswith("NH3") for r in rows) \
             and cyc["NH3_slip_ppmvd_max"] > NH3_UNLIMITED_WARN_PPMVD:
         warnings.append(
             f"no NH3 limit in the case, and the NH3 slip reaches {cyc['NH3_slip_ppmvd_max']:.0f} "

@@ -37,8 +37,9 @@ from importlib import resources
 from .emissions import co2e_g, o2_reference, ppm_to_mg_Nm3, weighted_specific_emission, wet_ppm
 from .errors import InputError, did_you_mean
 
-__all__ = ["QUANTITIES", "LimitRow", "LimitSet", "ModeEmissions", "load_limit_set",
-           "available_limit_sets", "custom_limits", "imo_nox_limit", "cycle_values", "evaluate",
+__all__ = ["QUANTITIES", "LimitRow", "LimitSet", "LimitCheck", "basis_label", "group_label",
+           "governing", "ModeEmissions",
+           "load_limit_set", "available_limit_sets", "custom_limits", "imo_nox_limit", "cycle_values", "evaluate",
            "round_half_up"]
 
 _G = "g/kWh"
@@ -90,6 +91,78 @@ class LimitRow:
     source: str = ""
     clause: str = ""
     confidence: str = ""
+
+
+@dataclass(frozen=True)
+class LimitCheck:
+    """One check of one limit row: over the cycle (``mode`` None) or at one mode.
+
+    ``value`` and ``limit`` are on the row's own basis (``unit``, at ``o2_ref_pct`` for
+    concentration rows); ``limit`` is None where the row does not apply (an idle or exempt
+    mode, below a load gate: ``note`` says why), and such a check passes."""
+    row_name: str
+    quantity: str
+    unit: str
+    value: float
+    limit: float | None
+    passed: bool
+    mode: str | None = None
+    o2_ref_pct: float | None = None
+    source: str = ""
+    confidence: str = ""
+    clause: str = ""
+    note: str = ""
+
+    @property
+    def name(self) -> str:
+        """The row's name, with the mode for a per-mode check."""
+        return self.row_name if self.mode is None else f"{self.row_name}, mode {self.mode}"
+
+    @property
+    def basis(self) -> str:
+        """The unit with its reference O2, e.g. ``ppmvd @15% O2``."""
+        return basis_label(self.unit, self.o2_ref_pct)
+
+    @property
+    def ratio(self) -> float | None:
+        """value / limit (None where the row does not apply)."""
+        if self.limit is None:
+            return None
+        return self.value / self.limit if self.limit > 0 else (0.0 if self.value <= 0
+                                                               else math.inf)
+
+    def to_dict(self) -> dict:
+        """The JSON/CSV row (``aftertreat.run/1`` ``limits``)."""
+        return {"name": self.name, "quantity": self.quantity, "value": self.value,
+                "limit": self.limit, "unit": self.unit, "o2_ref_pct": self.o2_ref_pct,
+                "pass": self.passed, "mode": self.mode, "source": self.source,
+                "confidence": self.confidence, "clause": self.clause, "note": self.note}
+
+
+def group_label(check) -> str:
+    """A column-safe name for the group of checks a panel or a sizing curve shows: the quantity,
+    its reference O2 and whether it is checked per mode or over the cycle, e.g.
+    ``NH3_ppmvd_at_15pctO2_per_mode`` or ``NOx_g_kWh_cycle``."""
+    o2 = "" if check.o2_ref_pct is None else f"_at_{check.o2_ref_pct:g}pctO2"
+    return f"{check.quantity}{o2}_{'cycle' if check.mode is None else 'per_mode'}"
+
+
+def governing(checks) -> dict:
+    """The check with the highest value/limit in each group (:func:`group_label`), over the
+    checks that apply (limit not None), in the order the groups first appear."""
+    out: dict = {}
+    for c in checks:
+        if c.limit is None:
+            continue
+        g = group_label(c)
+        if g not in out or c.ratio > out[g].ratio:
+            out[g] = c
+    return out
+
+
+def basis_label(unit: str, o2_ref_pct: float | None) -> str:
+    """A unit with its reference O2: ``"ppmvd @15% O2"``, or the unit alone."""
+    return unit if o2_ref_pct is None else f"{unit} @{o2_ref_pct:g}% O2"
 
 
 @dataclass
@@ -288,9 +361,7 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
              round_limit: bool | None = None) -> list[dict]:
     """Check ``modes`` against every row of ``limit_set``.
 
-    Returns one dict per check: ``name, value, limit, unit, o2_ref_pct, pass, source, confidence,
-    mode``
-    (``mode`` None for cycle rows) plus ``quantity, clause, note``. Cycle values are rounded per
+    Returns one :class:`LimitCheck` per check (``mode`` None for cycle rows). Cycle values are rounded per
     the set's ``round_decimals`` before comparison; the limit is rounded too only if
     ``round_limit`` (argument, else the set's default). Per-mode rows skip modes flagged
     ``cap_exempt`` when the row applies exemptions, and modes below ``min_load_pct`` of
@@ -301,8 +372,9 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
     p_rated = rated_power_kW if rated_power_kW is not None else max(m.power_kW for m in modes)
     out, cyc = [], None
     for row in limit_set.rows:
-        base = {"unit": row.unit, "o2_ref_pct": row.o2_ref_pct, "source": row.source,
-                "confidence": row.confidence, "quantity": row.quantity, "clause": row.clause}
+        base = {"row_name": row.name, "unit": row.unit, "o2_ref_pct": row.o2_ref_pct,
+                "source": row.source, "confidence": row.confidence, "quantity": row.quantity,
+                "clause": row.clause}
         lim = _limit(row, rated_speed_rpm) * row.factor
         if row.scope == "cycle":
             cyc = cyc or cycle_values(modes, gwp_set)
@@ -314,8 +386,8 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
                 if rl:
                     lim = round_half_up(lim, nd)
                     note += "; limit rounded likewise"
-            out.append({**base, "name": row.name, "value": v, "limit": lim,
-                        "pass": bool(v <= lim), "mode": None, "note": note})
+            out.append(LimitCheck(**base, value=v, limit=lim, passed=bool(v <= lim),
+                                  mode=None, note=note))
             continue
         for m in modes:
             skip = ""
@@ -334,7 +406,6 @@ def evaluate(limit_set: LimitSet, modes: list[ModeEmissions], *, rated_speed_rpm
                     raise
                 v = math.nan
             passed = True if skip else bool(v <= lim)
-            out.append({**base, "name": f"{row.name}, mode {m.name}", "value": v,
-                        "limit": None if skip else lim, "pass": passed, "mode": m.name,
-                        "note": skip})
+            out.append(LimitCheck(**base, value=v, limit=None if skip else lim,
+                                  passed=passed, mode=m.name, note=skip))
     return out

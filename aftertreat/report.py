@@ -5,8 +5,9 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
-from .output import SAFETY_NOTE, to_json, write_atomic
+from . import plots
 from .errors import InputError
+from .output import SAFETY_NOTE, to_json, write_atomic
 
 __all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml",
            "sources_text", "case_as_run_text", "check_report_folder", "StagedFolder"]
@@ -207,7 +208,8 @@ def write_report(result, folder: str | Path, case_text: str | None = None) -> li
     """Write the report of a :class:`~aftertreat.evaluate.CycleResult` into ``folder``.
 
     Files: ``summary.json`` (the ``aftertreat.run/1`` object), ``modes.csv``, ``limits.csv``,
-    ``bricks.csv``, ``profiles.csv``, ``provenance.csv``, ``outlet_vs_limits.png``,
+    ``bricks.csv``, ``profiles.csv``, ``provenance.csv``, ``compliance.png`` (every limit as
+    value / limit), ``limits_by_mode.png`` (each limited quantity on its own basis),
     ``profiles.png``, ``sources.txt``, ``case_as_run.toml`` (``case_text``, default
     :func:`case_as_run_text`), ``SAFETY.txt``. Write into a :class:`StagedFolder` so the
     report appears whole or not at all.
@@ -236,8 +238,9 @@ def write_report(result, folder: str | Path, case_text: str | None = None) -> li
     put("profiles.csv", _csv(pd.concat(profiles, ignore_index=True)))
     if prov is not None:
         put("provenance.csv", _csv(prov))
-    put("outlet_vs_limits.png", _plot_outlet(result))
-    put("profiles.png", _plot_profiles(result))
+    put("compliance.png", plots.compliance(result))
+    put("limits_by_mode.png", plots.limits_by_mode(result))
+    put("profiles.png", plots.profiles(result))
     put("sources.txt", sources_text(result))
     put("case_as_run.toml", case_text if case_text is not None
         else case_as_run_text(result.case))
@@ -257,79 +260,6 @@ def sources_text(result) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _figure():
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    return plt
-
-
-def _png(fig) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    import matplotlib.pyplot as plt
-    plt.close(fig)
-    return buf.getvalue()
-
-
-def _plot_outlet(result) -> bytes:
-    """Per-mode outlet NOx, NH3 and N2O (ppmvd) with the per-mode limits of the case."""
-    plt = _figure()
-    t = result.mode_table()
-    names = list(t["mode"])
-    x = range(len(names))
-    fig, axes = plt.subplots(1, 3, figsize=(13, 4))
-    n2o_dry = [m.emissions()["ppmvd"]["N2O"] for m in result.modes]
-    for ax, col, vals, title in (
-            (axes[0], "NOx", t["NOx_out_ppmvd"], "NOx out [ppmvd, actual O2]"),
-            (axes[1], "NH3", t["NH3_out_ppmvd"], "NH3 slip out [ppmvd, actual O2]"),
-            (axes[2], "N2O", n2o_dry, "N2O out [ppmvd, actual O2]")):
-        ax.bar(x, vals, color="#4a7ab5")
-        ax.set_xticks(list(x), names, rotation=30, ha="right")
-        ax.set_title(title, fontsize=10)
-        for r in result.limits:
-            if r.get("mode") is not None and r["name"].startswith(col) and r["unit"].startswith(
-                    "ppm"):
-                i = names.index(r["mode"]) if r["mode"] in names else None
-                if i is not None:
-                    ax.plot([i - 0.4, i + 0.4], [r["limit"], r["limit"]], color="#c0392b", lw=2)
-                    ax.text(i, r["limit"], f" {r['value']:.1f}@ref", fontsize=7, va="bottom",
-                            ha="center", color="#c0392b")
-    fig.suptitle(f"{result.case.title}\noutlet by mode (red: per-mode limits at their reference O2;"
-                 " label: value at the reference O2)", fontsize=9)
-    fig.tight_layout(rect=(0, 0, 1, 0.93))
-    return _png(fig)
-
-
-def _plot_profiles(result) -> bytes:
-    """Axial profiles along the train for every mode."""
-    plt = _figure()
-    fig, axes = plt.subplots(2, 2, figsize=(12, 7), sharex=True)
-    for m in result.modes:
-        p = m.solution.profiles()
-        z = p["z_mm"]
-        axes[0, 0].plot(z, p["NO_ppm"] + p["NO2_ppm"], label=m.name)
-        axes[0, 1].plot(z, p["NH3_ppm"], label=m.name)
-        axes[1, 0].plot(z, p["N2O_ppm"], label=m.name)
-        axes[1, 1].plot(z, p["T_solid_C"], label=m.name)
-    for ax, t in ((axes[0, 0], "NOx [ppm wet]"), (axes[0, 1], "NH3 [ppm wet]"),
-                  (axes[1, 0], "N2O [ppm wet]"), (axes[1, 1], "catalyst temperature [C]")):
-        ax.set_title(t, fontsize=10)
-        ax.grid(alpha=0.3)
-    axes[0, 1].set_yscale("symlog", linthresh=1.0)
-    z0 = 0.0
-    for b in (result.train or result.case.train).bricks[:-1]:
-        z0 += b.length * 1e3
-        for ax in axes.ravel():
-            ax.axvline(z0, color="grey", lw=0.8, ls="--")
-    axes[1, 0].set_xlabel("distance along the train [mm]")
-    axes[1, 1].set_xlabel("distance along the train [mm]")
-    axes[0, 0].legend(fontsize=8)
-    fig.suptitle(f"{result.case.title}: axial profiles (dashed: brick boundaries)", fontsize=9)
-    fig.tight_layout(rect=(0, 0, 1, 0.95))
-    return _png(fig)
-
-
 def write_size_report(res, folder: str | Path) -> list[Path]:
     """Sizing report: ``size.json`` (``aftertreat.size/1``), ``sizing_curves.csv``,
     ``sizing_curves.png``, ``margins.csv``, and the full run report of the sized design."""
@@ -339,40 +269,11 @@ def write_size_report(res, folder: str | Path) -> list[Path]:
         res.case, res.sized_data(), how="size"))
     for name, text in (("size.json", to_json(res.to_json()) + "\n"),
                        ("sizing_curves.csv", _csv(res.curve_table())),
-                       ("margins.csv", _csv(pd.DataFrame(res.margins))),
-                       ("sizing_curves.png", _plot_curves(res))):
+                       ("margins.csv", _csv(pd.DataFrame([x.to_dict() for x in res.margins]))),
+                       ("sizing_curves.png", plots.sizing_curves(res))):
         write_atomic(folder / name, text)
         written.append(folder / name)
     return written
-
-
-def _plot_curves(res) -> bytes:
-    """Cycle NOx, max NH3 slip, N2O and back-pressure against the SCR volume (slip catalyst at
-    its sized length) and against the slip-catalyst volume (SCR at its sized length)."""
-    plt = _figure()
-    t = res.curve_table()
-    fig, axes = plt.subplots(2, 4, figsize=(15, 7))
-    cols = (("NOx_g_kWh", "cycle NOx [g/kWh]"),
-            ("NH3_slip_ppmvd_max", "max NH3 slip [ppmvd, as measured]"),
-            ("N2O_g_kWh", "cycle N2O [g/kWh]"), ("dp_kPa_max", "back-pressure, worst mode [kPa]"))
-    scr_v = sum(b.volume for b in res.train.bricks if b.role == "SCR") * 1e3
-    asc_v = sum(b.volume for b in res.train.bricks if b.role != "SCR") * 1e3
-    for row, (sweep, xcol, xv, label) in enumerate((
-            ("SCR", "SCR_volume_L", scr_v, "SCR volume [L] (slip catalyst at its size)"),
-            ("ASC", "ASC_volume_L", asc_v, "slip-catalyst volume [L] (SCR at its size)"))):
-        d = t[t["sweep"] == sweep].sort_values(xcol)
-        for ax, (col, title) in zip(axes[row], cols):
-            ax.plot(d[xcol], d[col], "o-", color="#4a7ab5", ms=4)
-            ax.axvline(xv, color="#c0392b", lw=1.2, ls="--")
-            ax.set_title(title, fontsize=9)
-            ax.set_xlabel(label, fontsize=8)
-            ax.grid(alpha=0.3)
-    from .sizing import COARSE_GRID
-    fig.suptitle(f"{res.case.title}\nsizing curves around the sized design (dashed), on the "
-                 f"search grid ({COARSE_GRID[0]} cells per brick, within 1-2 % of the case's)",
-                 fontsize=9)
-    fig.tight_layout(rect=(0, 0, 1, 0.93))
-    return _png(fig)
 
 
 def write_transient_report(trun, run_obj: dict, folder: str | Path,
@@ -392,7 +293,7 @@ def write_transient_report(trun, run_obj: dict, folder: str | Path,
         written.append(folder / name)
 
     put("transient.csv", _csv(trun.table()))
-    put("transient.png", _plot_transient(trun))
+    put("transient.png", plots.transient(trun))
     put("summary.json", to_json(run_obj) + "\n")
     lim = _csv(pd.DataFrame(trun.summary()["limits"]))
     if with_cycle:
@@ -404,40 +305,3 @@ def write_transient_report(trun, run_obj: dict, folder: str | Path,
     put("case_as_run.toml", case_as_run_text(trun.case))
     put("SAFETY.txt", SAFETY_NOTE + "\n")
     return written
-
-
-def _plot_transient(trun) -> bytes:
-    """Outlet NOx, NH3 and N2O (ppmvd) with the concentration limits; temperatures; stored NH3
-    per brick; the power and the ANR at the inlet."""
-    plt = _figure()
-    df = trun.table()
-    t = df["t_s"] / 60.0
-    fig, ax = plt.subplots(4, 1, figsize=(11, 10), sharex=True)
-    for col, c in (("NOx_out_ppmvd", "#4a7ab5"), ("NH3_out_ppmvd", "#c0392b"),
-                   ("N2O_out_ppmvd", "#7d3c98")):
-        ax[0].plot(t, df[col], color=c, lw=1.0, label=col.replace("_out_ppmvd", ""))
-    for r in trun.summary()["limits"]:
-        if r.get("unit") == "ppmvd" and r.get("limit") is not None and not r.get("o2_ref_pct"):
-            ax[0].axhline(r["limit"], color="grey", ls="--", lw=0.8)
-    ax[0].set_ylabel("outlet [ppmvd,\nas measured]")
-    ax[0].legend(fontsize=8, loc="upper right")
-    ax[1].plot(t, df["T_in_C"], color="black", lw=1.0, label="gas in")
-    for name in trun.result.brick_names:
-        ax[1].plot(t, df[f"{name}_T_solid_mean_C"], lw=1.0, label=f"{name} solid (mean)")
-    ax[1].set_ylabel("temperature [C]")
-    ax[1].legend(fontsize=8, loc="upper right")
-    for name in trun.result.brick_names:
-        ax[2].plot(t, df[f"{name}_stored_NH3_g"], lw=1.0, label=name)
-    ax[2].set_ylabel("stored NH3 [g]")
-    ax[2].legend(fontsize=8, loc="upper right")
-    ax[3].plot(t, df["power_kW"], color="black", lw=1.0)
-    ax[3].set_ylabel("power [kW]")
-    a2 = ax[3].twinx()
-    a2.plot(t, df["ANR_in"], color="#27ae60", lw=0.8)
-    a2.set_ylabel("ANR at the inlet [-]", color="#27ae60")
-    ax[3].set_xlabel("time [min]")
-    for a in ax:
-        a.grid(alpha=0.3)
-    fig.suptitle(f"{trun.case.title}\n{trun.timeline.source}", fontsize=9)
-    fig.tight_layout(rect=(0, 0, 1, 0.95))
-    return _png(fig)

@@ -47,9 +47,10 @@ import numpy as np
 from .errors import InputError
 from .reactor import SolverSettings
 from .evaluate import mode_inlets, run_case
+from .limits import governing
 from .train import Train
 
-__all__ = ["SizingResult", "size_case", "SIZING_TOL"]
+__all__ = ["SizingResult", "DesignMargin", "size_case", "SIZING_TOL"]
 
 #: Relative tolerance on each sized length.
 SIZING_TOL = 0.005
@@ -64,6 +65,21 @@ COARSE_GRID = (8, 4)
 _DP_PLAUSIBLE = 0.4
 
 
+@dataclass(frozen=True)
+class DesignMargin:
+    """The margin left on one limit check at the sized design: ``margin_pct`` = 100 (1 -
+    value/limit), and whether the value is within the limit less the design margin."""
+    check: object                      # aftertreat.limits.LimitCheck
+    margin_pct: float | None
+    pass_with_design_margin: bool
+
+    def to_dict(self) -> dict:
+        c = self.check
+        return {"name": c.name, "mode": c.mode, "value": c.value, "limit": c.limit,
+                "unit": c.unit, "o2_ref_pct": c.o2_ref_pct, "margin_pct": self.margin_pct,
+                "pass_with_design_margin": self.pass_with_design_margin}
+
+
 @dataclass
 class SizingResult:
     """The sized train, the run at that size, the limits that bind and the sizing curves."""
@@ -75,7 +91,7 @@ class SizingResult:
     curves: list[dict]                 # one row per design evaluated
     problems: list[str] = field(default_factory=list)
     suggestions: list[str] = field(default_factory=list)
-    margins: list[dict] = field(default_factory=list)
+    margins: list[DesignMargin] = field(default_factory=list)
     evaluations: int = 0
     train_solves: int = 0
     seconds: float = 0.0
@@ -94,7 +110,8 @@ class SizingResult:
                 "overrides": list(getattr(self.case, "overrides", [])),
                 "bricks": self.brick_rows(), "total_volume_L": self.train.volume * 1e3,
                 "binding": self.binding, "feasible": self.feasible, "problems": self.problems,
-                "suggestions": self.suggestions, "margins": self.margins,
+                "suggestions": self.suggestions,
+                "margins": [x.to_dict() for x in self.margins],
                 "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
                 "continuous_optimum": self.continuous, "build_rules": self.build_rules,
                 "diameter_reason": self.diameter_reason, "objective": self.objective,
@@ -145,18 +162,18 @@ def _brick_rows(train) -> list[dict]:
 def _design_value(res, r) -> float:
     """The value a design margin applies to: unrounded (a limit set may round the reported
     cycle value, e.g. to one decimal for IMO; the margin should not profit from that)."""
-    if r.get("mode") is None and r["quantity"] in res.cycle:
-        return max(float(res.cycle[r["quantity"]]), float(r["value"]))
-    return float(r["value"])
+    if r.mode is None and r.quantity in res.cycle:
+        return max(float(res.cycle[r.quantity]), float(r.value))
+    return float(r.value)
 
 
 def _ratios(res, quantities: tuple[str, ...], margin: float):
     """(row, value/(limit x (1 - margin))) for the applicable limit rows whose quantity starts
     with one of ``quantities``."""
     for r in res.limits:
-        if r["quantity"].startswith(quantities) and r.get("limit") is not None:
+        if r.quantity.startswith(quantities) and r.limit is not None:
             v = _design_value(res, r)
-            yield r, (v / (r["limit"] * (1.0 - margin)) if r["limit"] > 0 else
+            yield r, (v / (r.limit * (1.0 - margin)) if r.limit > 0 else
                       (0.0 if v <= 0 else math.inf))
 
 
@@ -167,7 +184,7 @@ def _worst(res, quantities: tuple[str, ...], margin: float) -> float:
 
 def _rows(res, quantities: tuple[str, ...], margin: float) -> dict:
     """value/(limit with margin) per limit row of a group, keyed by name and mode."""
-    return {(r["name"], r.get("mode")): q for r, q in _ratios(res, quantities, margin)}
+    return {(r.name, r.mode): q for r, q in _ratios(res, quantities, margin)}
 
 
 class _Designs:
@@ -451,14 +468,14 @@ def choose_anr(case, margin: float, excess: float) -> np.ndarray:
     for ls in case.limit_sets:
         for r in lm.evaluate(ls, heads, rated_speed_rpm=case.engine.rated_speed_rpm,
                              gwp_set=case.gwp_set, rated_power_kW=case.engine.rated_power_kW):
-            if not r["quantity"].startswith("NOx") or r.get("limit") is None or r["value"] <= 0:
+            if not r.quantity.startswith("NOx") or r.limit is None or r.value <= 0:
                 continue
-            x = max(0.0, 1.0 - r["limit"] * (1.0 - margin) / r["value"])
-            if r.get("mode") is None:
+            x = max(0.0, 1.0 - r.limit * (1.0 - margin) / r.value)
+            if r.mode is None:
                 need = np.fmax(need, x)
             else:
                 names = [mode.name for mode in case.cycle.modes]
-                idx = names.index(r["mode"]) if r["mode"] in names else None
+                idx = names.index(r.mode) if r.mode in names else None
                 if idx is not None:
                     need[idx] = np.fmax(need[idx], x)
     # a mode no NOx limit covers (e.g. below a load gate) keeps the case's ANR
@@ -660,7 +677,7 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             res = designs(L_scr, L_asc)
             problems.append(f"with {section} these limits still fail (best values reachable): "
                             + "; ".join(_failing(res, quantities, m)))
-            reported.update((r["name"], r.get("mode")) for r, q in _ratios(res, quantities, m)
+            reported.update((r.name, r.mode) for r, q in _ratios(res, quantities, m)
                             if q > 1.0)
             suggestions.extend(_suggest(res, quantities, m, case))
             if dp_capped:
@@ -721,25 +738,24 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     # every other limit, the back-pressure budget and the envelope, on the result
     margins = []
     for r in res.limits:
-        if r.get("limit") is None:
+        if r.limit is None:
             continue
-        lim_m = r["limit"] * (1.0 - m)
+        lim_m = r.limit * (1.0 - m)
         ratio = _design_value(res, r) / lim_m if lim_m > 0 else math.inf
-        margins.append({"name": r["name"], "mode": r.get("mode"), "value": r["value"],
-                        "limit": r["limit"], "unit": r["unit"], "o2_ref_pct": r.get("o2_ref_pct"),
-                        "margin_pct": 100.0 * (1.0 - r["value"] / r["limit"])
-                        if r["limit"] > 0 else None, "pass_with_design_margin": ratio <= 1.0})
+        margins.append(DesignMargin(check=r, margin_pct=100.0 * (1.0 - r.value / r.limit)
+                                    if r.limit > 0 else None,
+                                    pass_with_design_margin=ratio <= 1.0))
         if ratio > 1.0:
             feasible = False
-            if (r["name"], r.get("mode")) in reported:
+            if (r.name, r.mode) in reported:
                 continue
-            problems.append(f"{r['name']}" + (f" at mode {r['mode']}" if r.get("mode") and
-                                              str(r["mode"]) not in r["name"] else "")
-                            + f": {_design_value(res, r):.3g} > {lim_m:.3g} {r['unit']} "
+            problems.append(f"{r.name}" + (f" at mode {r.mode}" if r.mode and
+                                              str(r.mode) not in r.name else "")
+                            + f": {_design_value(res, r):.3g} > {lim_m:.3g} {r.unit} "
                             "(limit with margin)")
-            suggestions += _suggest(res, (r["quantity"],), m, case)
+            suggestions += _suggest(res, (r.quantity,), m, case)
         elif ratio > 1.0 - 3 * SIZING_TOL - 0.01:
-            binding.append(r["name"])
+            binding.append(r.name)
     dp = max(mr.solution.dp_Pa for mr in res.modes) / 1e3
     if sz.get("dp_max_kPa") and dp > sz["dp_max_kPa"]:
         feasible = False
@@ -903,16 +919,16 @@ def _failing(res, quantities, margin) -> list[str]:
     out = []
     for r, q in _ratios(res, quantities, margin):
         if q > 1.0:
-            where = f" at mode {r['mode']}" if r.get("mode") and str(r["mode"]) not in \
-                r["name"] else ""
-            out.append(f"{r['name']}{where}: {_design_value(res, r):.3g} {r['unit']} against "
-                       f"{r['limit'] * (1.0 - margin):.3g} with the design margin")
+            where = f" at mode {r.mode}" if r.mode and str(r.mode) not in \
+                r.name else ""
+            out.append(f"{r.name}{where}: {_design_value(res, r):.3g} {r.unit} against "
+                       f"{r.limit * (1.0 - margin):.3g} with the design margin")
     return out
 
 
 def _suggest(res, quantities, margin, case) -> list[str]:
     """What would change an infeasible answer, by the kind of limit that fails."""
-    kinds = {r["quantity"].split("_")[0] for r, q in _ratios(res, quantities, margin) if q > 1.0}
+    kinds = {r.quantity.split("_")[0] for r, q in _ratios(res, quantities, margin) if q > 1.0}
     out = []
     if "NOx" in kinds:
         out += ["a more active catalyst or a higher cell density",
@@ -943,6 +959,9 @@ def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> lis
         # the sized design itself belongs to both sweeps
         sweeps = [s for s, on in (("SCR", same_asc), ("ASC", same_scr)) if on] or ["search"]
         c = res.cycle
+        gov = {}                     # the governing check of each limit group, on its basis
+        for g, chk in governing(res.limits).items():
+            gov[f"{g}_value"], gov[f"{g}_limit"] = chk.value, chk.limit
         t = designs.train(Ls, La)
         scr_mm = sum(t.bricks[i].length for i in designs.scr) * 1e3
         asc_mm = sum(t.bricks[i].length for i in designs.asc) * 1e3
@@ -954,5 +973,5 @@ def _curves(designs: _Designs, margin: float, L_scr: float, L_asc: float) -> lis
                   "dp_kPa_max": max(m.solution.dp_Pa for m in res.modes) / 1e3,
                   "NOx_ratio": _worst(res, ("NOx",), margin),
                   "NH3_ratio": _worst(res, ("NH3",), margin),
-                  "converged": res.converged} for sweep in sweeps]
+                  **gov, "converged": res.converged} for sweep in sweeps]
     return sorted(rows, key=lambda r: (r["SCR_length_mm"], r["ASC_length_mm"]))

@@ -181,7 +181,7 @@ class TrainSolution:
                    "T_in_C": s.inlet.T - 273.15, "T_out_C": s.outlet.T - 273.15,
                    "dp_kPa": s.dp.total_Pa / 1e3}
             for sp in ("NO", "NO2", "NH3", "N2O"):
-                row[f"{sp}_out_ppm"] = s.outlet.ppm(sp)
+                row[f"{sp}_out_ppm_wet"] = s.outlet.ppm(sp)
             row.update({"converged": s.converged, "residual": s.residual,
                         "iterations": s.iterations, "element_balance_error":
                         s.element_balance_error})
@@ -191,7 +191,7 @@ class TrainSolution:
     def profiles(self):
         """Axial profiles along the train: one row per cell, z measured from the train inlet.
 
-        Columns: ``brick``, ``z_mm``, wet ppm of each species (``NO_ppm`` ...), ``T_gas_C``,
+        Columns: ``brick``, ``z_mm``, wet ppm of each species (``NO_ppm_wet`` ...), ``T_gas_C``,
         ``T_solid_C``, and the NH3 coverage of the gas-side node of each site (``theta_<layer>_<site>``).
         """
         import pandas as pd
@@ -201,7 +201,7 @@ class TrainSolution:
             d = {"brick": s.brick.name, "z_mm": (z0 + s.z) * 1e3}
             tot = s.F.sum(axis=1)
             for sp in SPECIES:
-                d[f"{sp}_ppm"] = s.F[:, INDEX[sp]] / tot * 1e6
+                d[f"{sp}_ppm_wet"] = s.F[:, INDEX[sp]] / tot * 1e6
             d["T_gas_C"] = s.T_gas - 273.15
             d["T_solid_C"] = s.T_solid - 273.15
             for k, cat in enumerate(s.brick.catalysts):

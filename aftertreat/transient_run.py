@@ -262,6 +262,44 @@ class _Doser:
         return inlet
 
 
+@dataclass(frozen=True)
+class RunLimitCheck:
+    """One limit row over a transient run. A g/kWh cycle row has its ``value`` (emitted mass
+    over work); a concentration row its ``peak``, time-weighted ``mean`` and ``time_above_s``
+    the limit; a per-mode cap of a test cycle does not apply (``limit`` None, ``note``)."""
+    row_name: str
+    quantity: str
+    unit: str
+    limit: float | None
+    passed: bool
+    source: str = ""
+    o2_ref_pct: float | None = None
+    value: float | None = None
+    peak: float | None = None
+    mean: float | None = None
+    time_above_s: float | None = None
+    note: str = ""
+
+    @property
+    def name(self) -> str:
+        return self.row_name
+
+    @property
+    def basis(self) -> str:
+        from .limits import basis_label
+        return basis_label(self.unit, self.o2_ref_pct)
+
+    def to_dict(self) -> dict:
+        d = {"name": self.name, "unit": self.unit, "o2_ref_pct": self.o2_ref_pct,
+             "limit": self.limit, "pass": self.passed, "source": self.source}
+        for k in ("value", "peak", "mean", "time_above_s"):
+            if getattr(self, k) is not None:
+                d[k] = getattr(self, k)
+        if self.note:
+            d["note"] = self.note
+        return d
+
+
 @dataclass
 class TransientRun:
     """A transient run of a case: the timeline, the dosing and the train's time series."""
@@ -280,13 +318,16 @@ class TransientRun:
 
     def step_emissions(self) -> list:
         """:class:`aftertreat.limits.ModeEmissions` of the train outlet at every step (the
-        step's length as its weight)."""
+        step's length as its weight); computed once."""
+        if getattr(self, "_steps", None) is not None:
+            return self._steps
         from .evaluate import mode_emissions
         r = self.result
         dt = np.diff(r.t_s, prepend=r.t_s[0])
-        return [mode_emissions(f"t={r.t_s[i]:g} s", float(dt[i]), float(self.timeline.power_kW[i]),
+        self._steps = [mode_emissions(f"t={r.t_s[i]:g} s", float(dt[i]), float(self.timeline.power_kW[i]),
                                False, s, float(self.timeline.air_CO2_mol_s[i]))
                 for i, s in enumerate(self._outlet_streams())]
+        return self._steps
 
     def table(self):
         """The time series, one row per step, units in the column names."""
@@ -336,7 +377,7 @@ class TransientRun:
         out["NH3_slip_ppmvd_peak"] = float(slip.max())
         out["NH3_slip_ppmvd_mean"] = float(dt @ slip[1:] / T_total)
         out["NH3_slip_ppmvd_peak_t_s"] = float(r.t_s[int(slip.argmax())])
-        out["limits"] = self._limits(steps, dt)
+        out["limits"] = [c.to_dict() for c in self.limit_checks()]
         out["NH3_account_mol"] = r.nh3_account()
         out["converged"] = r.all_converged
         out["jacobians"] = int(r.jacobians.sum())
@@ -346,49 +387,61 @@ class TransientRun:
         out["dosing_control"] = self.case.transient["control"]
         return out
 
-    def _limits(self, steps, dt) -> list[dict]:
+    def limit_checks(self) -> list[RunLimitCheck]:
         """Per limit row: a concentration row gives its peak, time average and time above the
         limit over the run; a g/kWh cycle row its value over the run (work-weighted). Per-mode
-        g/kWh rows (test-mode caps) do not apply to a trace and are listed as such."""
+        g/kWh rows (test-mode caps) do not apply to a trace and are listed as such. Computed
+        once."""
+        if getattr(self, "_checks", None) is None:
+            self._checks = self._limit_checks(self.step_emissions())
+        return self._checks
+
+    def limit_series(self) -> list[tuple]:
+        """(check, value per step, limit per step) of every concentration limit, each on the
+        limit's own basis (NaN where the row does not apply), for plots."""
+        self.limit_checks()
+        return list(self._series)
+
+    def _limit_checks(self, steps) -> list[RunLimitCheck]:
         from . import limits as lm
         case = self.case
         rows = []
+        self._series = []
         weights = np.diff(self.result.t_s, prepend=self.result.t_s[0])
         for ls in case.limit_sets:
             for row in ls.rows:
                 if row.unit == "g/kWh":
                     if row.scope == "mode":
-                        rows.append({"name": row.name, "unit": row.unit, "limit": None,
-                                     "pass": True, "source": row.source,
-                                     "note": "a per-mode cap of the test cycle: not applied to "
-                                             "a trace"})
+                        rows.append(RunLimitCheck(
+                            row.name, row.quantity, row.unit, None, True, row.source,
+                            note="a per-mode cap of the test cycle: not applied to a trace"))
                         continue
                     sub = dataclasses.replace(ls, rows=[row])
                     res = lm.evaluate(sub, steps[1:], rated_speed_rpm=case.engine.rated_speed_rpm,
                                       gwp_set=case.gwp_set,
                                       rated_power_kW=case.engine.rated_power_kW)
                     for rr in res:
-                        rows.append({"name": rr["name"], "unit": rr["unit"], "value": rr["value"],
-                                     "limit": rr["limit"], "pass": rr["pass"],
-                                     "source": rr["source"],
-                                     "note": "emitted mass / work over the run, not a "
-                                             "certification cycle"})
+                        rows.append(RunLimitCheck(
+                            rr.name, rr.quantity, rr.unit, rr.limit, rr.passed, rr.source,
+                            value=rr.value,
+                            note="emitted mass / work over the run, not a certification "
+                                 "cycle"))
                     continue
                 sub = dataclasses.replace(ls, rows=[row])
                 res = lm.evaluate(sub, steps, rated_speed_rpm=case.engine.rated_speed_rpm,
                                   gwp_set=case.gwp_set, rated_power_kW=case.engine.rated_power_kW)
-                v = np.array([rr["value"] for rr in res], dtype=float)
-                lim = np.array([np.nan if rr["limit"] is None else rr["limit"] for rr in res])
+                v = np.array([rr.value for rr in res], dtype=float)
+                lim = np.array([np.nan if rr.limit is None else rr.limit for rr in res])
                 on = np.isfinite(lim)
                 above = on & (v > np.where(on, lim, np.inf))
                 t_above = float(weights[above].sum())
-                rows.append({"name": row.name, "unit": row.unit, "o2_ref_pct": row.o2_ref_pct,
-                             "limit": float(np.nanmax(lim)) if on.any() else None,
-                             "peak": float(np.nanmax(v[on])) if on.any() else None,
-                             "mean": float((weights[on] @ v[on]) / weights[on].sum())
-                             if on.any() and weights[on].sum() > 0 else None,
-                             "time_above_s": t_above, "pass": t_above == 0.0,
-                             "source": row.source})
+                rows.append(RunLimitCheck(
+                    row.name, row.quantity, row.unit, float(np.nanmax(lim)) if on.any() else None,
+                    t_above == 0.0, row.source, o2_ref_pct=row.o2_ref_pct,
+                    peak=float(np.nanmax(v[on])) if on.any() else None,
+                    mean=float((weights[on] @ v[on]) / weights[on].sum())
+                    if on.any() and weights[on].sum() > 0 else None, time_above_s=t_above))
+                self._series.append((rows[-1], v, lim))
         return rows
 
     def to_json(self) -> dict:
@@ -405,9 +458,9 @@ class TransientRun:
         from .emissions import GWP100
         gwp = GWP100[self.case.gwp_set]
         cyc["N2O_CO2e_g_kWh"] = None if s["N2O_g_kWh"] is None else gwp * s["N2O_g_kWh"]
-        limits = [{"name": x["name"], "value": x.get("value", x.get("peak")),
-                   "limit": x.get("limit"), "unit": x["unit"], "pass": x["pass"],
-                   "source": x.get("source", "")} for x in s["limits"]]
+        limits = [{"name": x.name, "value": x.value if x.value is not None else x.peak,
+                   "limit": x.limit, "unit": x.unit, "o2_ref_pct": x.o2_ref_pct,
+                   "pass": x.passed, "source": x.source} for x in self.limit_checks()]
         return {"schema": "aftertreat.run/1", "case": self.case.title, "file": self.case.file,
                 "overrides": list(getattr(self.case, "overrides", [])), "cycle_name": None, "modes": [], "cycle": cyc, "limits": limits,
                 "pass": all(x["pass"] for x in limits) and s["converged"],

@@ -202,11 +202,11 @@ def test_ied_gas_turbine_mg_and_load_gate():
              _mode("75%", 0.3, 7500.0, ppmvd={"NO": 28.0, "NO2": 2.0}, O2_dry_pct=13.0),
              _mode("50%", 0.2, 5000.0, ppmvd={"NOx": 60.0}, O2_dry_pct=15.0)]
     rows = evaluate(load_limit_set("eu_ied_gas_turbine"), modes)
-    assert [r["mode"] for r in rows] == ["100%", "75%", "50%"]
-    assert rows[0]["value"] == pytest.approx(20 * 46.0055 / 22.4195, abs=0.02)
-    assert rows[1]["value"] == pytest.approx(22.5 * 46.0055 / 22.4195, abs=0.02)
-    assert rows[0]["pass"] and rows[1]["pass"] and rows[2]["limit"] is None
-    assert rows[0]["unit"] == "mg/Nm3" and rows[0]["confidence"] == "seen"
+    assert [r.mode for r in rows] == ["100%", "75%", "50%"]
+    assert rows[0].value == pytest.approx(20 * 46.0055 / 22.4195, abs=0.02)
+    assert rows[1].value == pytest.approx(22.5 * 46.0055 / 22.4195, abs=0.02)
+    assert rows[0].passed and rows[1].passed and rows[2].limit is None
+    assert rows[0].unit == "mg/Nm3" and rows[0].confidence == "seen"
 
 
 def test_nh3_slip_ppmvd_and_wet():
@@ -215,13 +215,13 @@ def test_nh3_slip_ppmvd_and_wet():
     5 ppm: 8 ppmvd x (1 - 0.19) = 6.48 ppm wet (fail)."""
     m = _mode(ppmvd={"NH3": 12.0}, O2_dry_pct=13.0)
     (row,) = evaluate(load_limit_set("nh3_slip_permit_10ppm"), [m])
-    assert row["value"] == pytest.approx(12 * 5.9 / 7.9, rel=1e-12) and row["pass"]
+    assert row.value == pytest.approx(12 * 5.9 / 7.9, rel=1e-12) and row.passed
     wet = custom_limits([{"name": "NH3 wet", "quantity": "NH3_ppm_wet_max", "value": 5.0,
                           "unit": "ppm", "source": "test permit"}])
     with pytest.raises(InputError):
         evaluate(wet, [m])
     (row,) = evaluate(wet, [_mode(ppmvd={"NH3": 8.0}, x_H2O=0.19)])
-    assert row["value"] == pytest.approx(6.48, rel=1e-12) and not row["pass"]
+    assert row.value == pytest.approx(6.48, rel=1e-12) and not row.passed
 
 
 def test_custom_limits_co2e_and_errors():
@@ -230,8 +230,8 @@ def test_custom_limits_co2e_and_errors():
     ls = custom_limits([{"name": "N2O CO2e", "quantity": "N2O_CO2e_g_kWh", "value": 25.0,
                          "unit": "g/kWh", "source": "owner specification"}], file="case.toml")
     (row,) = evaluate(ls, [_mode(N2O_g_h=100.0)])
-    assert row["value"] == pytest.approx(27.3, rel=1e-12) and not row["pass"]
-    assert row["mode"] is None and row["source"] == "owner specification"
+    assert row.value == pytest.approx(27.3, rel=1e-12) and not row.passed
+    assert row.mode is None and row.source == "owner specification"
     bad = [({"quantity": "NOx_ppmv", "value": 5, "unit": "ppmvd", "source": "x",
              "o2_ref_pct": 15}, "did you mean NOx_ppmvd"),
            ({"quantity": "NOx_ppmvd", "value": 5, "unit": "mg/Nm3", "source": "x",

@@ -43,10 +43,10 @@ def test_an_n2o_cap_is_met_by_the_sized_train_or_answered_infeasible():
     """With an N2O cap below the demo's own, the sized train meets it with the design margin,
     or the answer says it cannot and names the cap."""
     res = size_case(load_run_case(DEMO, ["sizing.N2O_max_g_kWh=1.05"]), curves=False)
-    row = [r for r in res.margins if r["name"].endswith("(sizing cap)")]
+    row = [r.check for r in res.margins if r.check.name.endswith("(sizing cap)")]
     assert len(row) == 1
     if res.feasible:
-        assert row[0]["value"] <= 1.05 * (1 - res.case.sizing["design_margin"]) * (1 + 1e-5)
+        assert row[0].value <= 1.05 * (1 - res.case.sizing["design_margin"]) * (1 + 1e-5)
     else:
         assert any("sizing cap" in p for p in res.problems), res.problems
 
@@ -60,7 +60,7 @@ def test_co2e_objective_lowers_co2e_within_the_volume():
     assert base.feasible and res.feasible
     assert res.train.volume <= base.train.volume * 1.4 * (1 + 1e-9)
     assert res.run.cycle["GHG_CO2e_g_kWh"] <= base.run.cycle["GHG_CO2e_g_kWh"] + 1e-9
-    assert all(r["pass_with_design_margin"] for r in res.margins)
+    assert all(r.pass_with_design_margin for r in res.margins)
     assert "least CO2e" in res.objective and "volume" in base.objective
 
 

@@ -120,10 +120,10 @@ def test_per_mode_g_kWh_rows_do_not_apply_at_idle(tmp_path):
     the idle g/h (weighted: sum W g / sum W P)."""
     case = load_run_case(_case(tmp_path, MEASURED))
     res = run_case(case)
-    rows = [r for r in res.limits if r.get("mode") == "idle"]
-    assert rows and all(r["limit"] is None and "idle" in r["note"] for r in rows)
-    assert all(np.isfinite(r["value"]) or r["value"] is None for r in res.limits
-               if r["limit"] is not None)
+    rows = [r for r in res.limits if r.mode == "idle"]
+    assert rows and all(r.limit is None and "idle" in r.note for r in rows)
+    assert all(np.isfinite(r.value) or r.value is None for r in res.limits
+               if r.limit is not None)
     idle = next(m for m in res.modes if m.name == "idle")
     rated = next(m for m in res.modes if m.name == "rated")
     g_rated, g_idle = (m.emissions()["NOx_g_h"] for m in (rated, idle))
@@ -178,9 +178,9 @@ def test_numeric_mode_names_stay_unique_when_loads_repeat(tmp_path):
     res = run_case(load_run_case(_case(tmp_path, text)))
     names = [m.name for m in res.modes]
     assert names == ["1 (100 %)", "2 (100 %)"], names
-    per_mode = [r["mode"] for r in res.limits if r.get("mode") is not None]
-    assert len(per_mode) == len(set((r["mode"], r["name"]) for r in res.limits
-                                    if r.get("mode") is not None))
+    per_mode = [r.mode for r in res.limits if r.mode is not None]
+    assert len(per_mode) == len(set((r.mode, r.name) for r in res.limits
+                                    if r.mode is not None))
 
 
 def test_repeated_mode_name_refused(tmp_path):

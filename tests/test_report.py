@@ -108,7 +108,7 @@ def test_an_interrupt_leaves_the_whole_report_or_nothing(tmp_path, capsys, monke
     def stop(*a, **k):
         raise KeyboardInterrupt
     if where == "plot":
-        monkeypatch.setattr(rp, "_plot_profiles", stop)
+        monkeypatch.setattr(rp.plots, "profiles", stop)
     else:
         real = rp.write_atomic
 
@@ -158,3 +158,29 @@ def test_sources_are_the_same_everywhere(tmp_path, capsys):
     capsys.readouterr()
     text = (rep / "sources.txt").read_text()
     assert all(line in text for line in lines)
+
+
+def test_sizing_curves_carry_each_limit_on_its_own_basis(sized):
+    """The curves hold the governing check of every limit group with its limit, on the
+    limit's basis (NH3 at 15 % O2 here, not the as-measured slip), and the figure exists."""
+    rep, obj = sized
+    row = obj["curves"][0]
+    assert "NH3_ppmvd_at_15pctO2_per_mode_value" in row
+    assert row["NH3_ppmvd_at_15pctO2_per_mode_limit"] == 10.0
+    assert row["NOx_g_kWh_cycle_limit"] > 0 and "N2O_g_kWh_cycle_value" in row
+    for png in ("sizing_curves.png", "compliance.png", "limits_by_mode.png"):
+        assert (rep / png).read_bytes()[:4] == b"\x89PNG"
+
+
+def test_limit_checks_are_typed_and_name_their_basis():
+    from aftertreat.cyclecase import load_run_case
+    from aftertreat.evaluate import run_case
+    from aftertreat.limits import LimitCheck, governing
+    res = run_case(load_run_case(DEMO))
+    assert all(isinstance(c, LimitCheck) for c in res.limits)
+    nh3 = [c for c in res.limits if c.quantity == "NH3_ppmvd"]
+    assert nh3 and all(c.basis == "ppmvd @15% O2" for c in nh3)
+    worst = governing(res.limits)["NH3_ppmvd_at_15pctO2_per_mode"]
+    assert worst.ratio == max(c.ratio for c in nh3)
+    d = res.to_json()["limits"][0]
+    assert {"name", "value", "limit", "unit", "o2_ref_pct", "pass", "mode"} <= set(d)

@@ -97,10 +97,10 @@ def test_report_folder(tmp_path, capsys):
     assert main(["run", str(TURBINE), "--report", str(out)]) == 0
     names = {p.name for p in out.iterdir()}
     for f in ("summary.json", "modes.csv", "limits.csv", "bricks.csv", "profiles.csv",
-              "provenance.csv", "outlet_vs_limits.png", "profiles.png", "sources.txt",
+              "provenance.csv", "compliance.png", "limits_by_mode.png", "profiles.png", "sources.txt",
               "case_as_run.toml", "SAFETY.txt"):
         assert f in names
-    for png in ("outlet_vs_limits.png", "profiles.png"):
+    for png in ("compliance.png", "limits_by_mode.png", "profiles.png"):
         assert (out / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert "NH3" in (out / "SAFETY.txt").read_text()
     # the case as run reads back to the same data

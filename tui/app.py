@@ -280,10 +280,9 @@ class CycleApp(App):
         self.query_one("#totals", Static).update(Text("\n".join(lines)))
         lim = Text("Limits\n")
         for r in res.limits:
-            ok = r["pass"]
-            name = r["name"]
+            ok = r.passed
             lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
-            lim.append(f"{name}: {_f(r.get('value'))} / {_f(r.get('limit'))} {r['unit']}\n")
+            lim.append(f"{r.name}: {_f(r.value)} / {_f(r.limit)} {r.basis}\n")
         lim.append("PASSES every limit" if res.passed else "DOES NOT PASS",
                    style="bold green" if res.passed else "bold red")
         self.query_one("#limits", Static).update(lim)
@@ -308,7 +307,8 @@ class CycleApp(App):
         bt.clear(columns=True)
         table = sol.brick_table()
         cols = [c for c in ("name", "role", "catalysts", "volume_L", "GHSV_per_h", "T_out_C",
-                            "dp_kPa", "NO_out_ppm", "NO2_out_ppm", "NH3_out_ppm", "N2O_out_ppm",
+                            "dp_kPa", "NO_out_ppm_wet", "NO2_out_ppm_wet", "NH3_out_ppm_wet",
+                            "N2O_out_ppm_wet",
                             "converged") if c in table.columns]
         bt.add_columns(*cols)
         for row in table[cols].itertuples(index=False):
@@ -383,12 +383,12 @@ class CycleApp(App):
                  f"solved {sm['real_time_factor']:.0f} x faster than real time"]
         self.query_one("#totals", Static).update(Text("\n".join(lines)))
         lim = Text("Limits over the run\n")
-        for r in sm["limits"]:
-            ok = r["pass"]
+        for r in run.limit_checks():
+            ok = r.passed
             lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
-            extra = (f", {r['time_above_s']:.0f} s above" if "time_above_s" in r else "")
-            lim.append(f"{r['name']}: {_f(r.get('value', r.get('peak')))} / "
-                       f"{_f(r.get('limit'))} {r['unit']}{extra}\n")
+            extra = (f", {r.time_above_s:.0f} s above" if r.time_above_s is not None else "")
+            lim.append(f"{r.name}: {_f(r.value if r.value is not None else r.peak)} / "
+                       f"{_f(r.limit)} {r.basis}{extra}\n")
         self.query_one("#limits", Static).update(lim)
         self._show_cursor()
         self._show_sources()

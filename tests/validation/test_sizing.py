@@ -230,14 +230,14 @@ def test_anr_chosen_to_the_nox_target():
         assert anr[i] >= own - 1e-12
         heads.append(mode_emissions(mode.name, mode.weight, power, False, eo, co2))
     rows = [r for ls in case.limit_sets for r in evaluate(
-        ls, heads, rated_power_kW=case.engine.rated_power_kW) if r["quantity"].startswith("NOx")
-        and r.get("limit") is not None]
+        ls, heads, rated_power_kW=case.engine.rated_power_kW) if r.quantity.startswith("NOx")
+        and r.limit is not None]
     assert rows
     names = [m.name for m in case.cycle.modes]
     for r in rows:                       # every gated NOx row is met at the chosen conversion
-        i = names.index(r["mode"])
+        i = names.index(r.mode)
         x = anr[i] - excess
-        assert r["value"] * (1.0 - x) <= r["limit"] * (1.0 - margin) * (1 + 1e-9)
+        assert r.value * (1.0 - x) <= r.limit * (1.0 - margin) * (1 + 1e-9)
 
 
 def test_diameter_raised_for_the_back_pressure_budget(tmp_path):

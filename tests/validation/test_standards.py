@@ -139,7 +139,7 @@ def _modes(cycle_key, power_kW, nox_g_h):
 
 
 def _cycle_row(rows):
-    (row,) = [r for r in rows if r["mode"] is None]
+    (row,) = [r for r in rows if r.mode is None]
     return row
 
 
@@ -150,9 +150,9 @@ def test_b2_e2_weighted_tier_ii_pass_tier_iii_fail():
     decimal after weighting per NTC 2008 3.1.3 (seen)."""
     modes = _modes("E2", [1000, 750, 500, 250], [9000, 7200, 5000, 3000])
     t2 = _cycle_row(evaluate(load_limit_set("imo_tier_ii"), modes, rated_speed_rpm=720))
-    assert t2["value"] == 9.6 and t2["pass"] and t2["limit"] == pytest.approx(9.689, abs=6e-4)
+    assert t2.value == 9.6 and t2.passed and t2.limit == pytest.approx(9.689, abs=6e-4)
     t3 = evaluate(load_limit_set("imo_tier_iii"), modes, rated_speed_rpm=720)
-    assert not _cycle_row(t3)["pass"] and _cycle_row(t3)["value"] == 9.6
+    assert not _cycle_row(t3).passed and _cycle_row(t3).value == 9.6
 
 
 def test_rounding_after_weighting_and_limit_policy():
@@ -165,8 +165,8 @@ def test_rounding_after_weighting_and_limit_policy():
     modes = _modes("E2", [1000, 750, 500, 250], [9000 * f, 7200 * f, 5000 * f, 3000 * f])
     ls = load_limit_set("imo_tier_ii")
     row = _cycle_row(evaluate(ls, modes, rated_speed_rpm=720))
-    assert row["value"] == 9.7 and not row["pass"]
-    assert _cycle_row(evaluate(ls, modes, rated_speed_rpm=720, round_limit=True))["pass"]
+    assert row.value == 9.7 and not row.passed
+    assert _cycle_row(evaluate(ls, modes, rated_speed_rpm=720, round_limit=True)).passed
     # rounding is of the weighted value, not of the mode values: B2 with mode 2 at 9.66 g/kWh
     # (7245 g/h) weighs to 9.6327 -> 9.6 (passes 9.689); rounding the modes first (9.7 at mode 2)
     # would weigh to 9.6545 -> 9.7 (fails)
@@ -174,7 +174,7 @@ def test_rounding_after_weighting_and_limit_policy():
     assert weighted_specific_emission([9000, 9.7 * 750, 5000, 3000], [1000, 750, 500, 250],
                                       [0.2, 0.5, 0.15, 0.15]) == pytest.approx(9.6545, abs=1e-4)
     row = _cycle_row(evaluate(ls, modes, rated_speed_rpm=720))
-    assert row["value"] == 9.6 and row["pass"]
+    assert row.value == 9.6 and row.passed
 
 
 def test_b3_e3_tier_iii_weighted_pass_mode_cap_fail():
@@ -186,10 +186,10 @@ def test_b3_e3_tier_iii_weighted_pass_mode_cap_fail():
     modes = _modes("E3", P, [p * e for p, e in zip(P, [2.4, 2.0, 2.6, 4.1])])
     rows = evaluate(load_limit_set("imo_tier_iii"), modes, rated_speed_rpm=500)
     cyc = _cycle_row(rows)
-    assert cyc["value"] == 2.3 and cyc["pass"] and cyc["limit"] == pytest.approx(2.597, abs=6e-4)
-    caps = [r for r in rows if r["mode"] is not None]
-    assert [r["pass"] for r in caps] == [True, True, True, False]
-    assert caps[3]["limit"] == pytest.approx(3.895, abs=6e-4) and caps[3]["value"] == 4.1
+    assert cyc.value == 2.3 and cyc.passed and cyc.limit == pytest.approx(2.597, abs=6e-4)
+    caps = [r for r in rows if r.mode is not None]
+    assert [r.passed for r in caps] == [True, True, True, False]
+    assert caps[3].limit == pytest.approx(3.895, abs=6e-4) and caps[3].value == 4.1
 
 
 def test_b4_d2_genset_tier_iii():
@@ -211,10 +211,10 @@ def test_b4_d2_genset_tier_iii():
     rows = evaluate(load_limit_set("imo_tier_iii"), modes, rated_speed_rpm=720)
     cyc = _cycle_row(rows)
     w = weighted_specific_emission(nox, P, load_cycle("D2").weights)
-    assert w == pytest.approx(1.293, abs=1e-3) and cyc["value"] == 1.3 and cyc["pass"]
-    mode5 = [r for r in rows if r["mode"] == "5"][0]
-    assert mode5["limit"] is None and "exempt" in mode5["note"] and mode5["pass"]
-    assert all(r["pass"] for r in rows)
+    assert w == pytest.approx(1.293, abs=1e-3) and cyc.value == 1.3 and cyc.passed
+    mode5 = [r for r in rows if r.mode == "5"][0]
+    assert mode5.limit is None and "exempt" in mode5.note and mode5.passed
+    assert all(r.passed for r in rows)
 
 
 # ---- O2 reference and ppm <-> mg/Nm3 ------------------------------------------------------------
