@@ -40,7 +40,7 @@ from .geometry import Substrate
 from .species import SPECIES
 from .stream import Stream
 from .train import Train
-from .units import to_si
+from .units import P_ATM_PA, to_si, ZERO_C_K
 
 __all__ = ["Case", "load_case", "parse_case", "apply_set", "read_toml"]
 
@@ -127,10 +127,10 @@ def parse_exhaust(ex: dict, file: str) -> Stream:
     pre = "exhaust."
     _unknown(ex, _EXHAUST, file, pre)
     T = _quantity(ex, "T", "K", ("C", "degC"), file, pre)
-    if not (273.15 <= T <= 1173.15):
+    if not (ZERO_C_K <= T <= (ZERO_C_K + 900.0)):
         raise InputError("expected a temperature within 0..900 degC", key=pre + "T",
                          value=ex.get("T", ex.get("T_C")), file=file)
-    p = _quantity(ex, "p", "Pa", ("kPa", "kPa"), file, pre, required=False, default=101325.0)
+    p = _quantity(ex, "p", "Pa", ("kPa", "kPa"), file, pre, required=False, default=P_ATM_PA)
     _positive(p, pre + "p", file, "a pressure > 0")
     basis = ex.get("basis", "wet")
     if basis not in ("wet", "dry"):

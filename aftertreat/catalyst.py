@@ -22,7 +22,7 @@ import numpy as np
 from .errors import InputError, did_you_mean
 from .kinetics import Mechanism, build_reaction
 from .species import MOLAR_MASS
-from .units import R_GAS, to_si
+from .units import R_GAS, to_si, ZERO_C_K
 
 __all__ = ["Catalyst", "LayeredCatalyst", "PoreStructure", "load_catalyst", "load_layers",
            "available_catalysts", "PROVENANCE_KINDS"]
@@ -76,9 +76,9 @@ class Catalyst:
         """Raise :class:`InputError` if ``T`` [K] lies outside the file's validity range."""
         lo, hi = self.valid_T
         if not (lo - 1e-9 <= T <= hi + 1e-9):
-            raise InputError(f"{what} {T - 273.15:.1f} degC is outside the validity range "
-                             f"{lo - 273.15:.0f}..{hi - 273.15:.0f} degC of catalyst '{self.key}'",
-                             key="valid_T_C", value=round(T - 273.15, 1), file=self.file)
+            raise InputError(f"{what} {T - ZERO_C_K:.1f} degC is outside the validity range "
+                             f"{lo - ZERO_C_K:.0f}..{hi - ZERO_C_K:.0f} degC of catalyst '{self.key}'",
+                             key="valid_T_C", value=round(T - ZERO_C_K, 1), file=self.file)
 
     def provenance_table(self) -> list[dict]:
         """Rows (item, parameter, provenance, source) for every parameter, for reports."""
@@ -174,7 +174,7 @@ def parse_catalyst(data: dict, *, key: str, file: str) -> Catalyst:
     mech = Mechanism(reactions=reactions, sites=sites, capacity=np.array(caps))
     return Catalyst(key=key, name=str(data.get("name", key)),
                     description=str(data.get("description", "")), role=role,
-                    valid_T=(vt[0] + 273.15, vt[1] + 273.15), sources=sources, pores=pores,
+                    valid_T=(vt[0] + ZERO_C_K, vt[1] + ZERO_C_K), sources=sources, pores=pores,
                     mechanism=mech, file=file, site_provenance=site_prov,
                     notes=str(data.get("notes", "")))
 

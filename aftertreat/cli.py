@@ -15,6 +15,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from .units import NORMAL_CONDITIONS, ZERO_C_K
+
 __all__ = ["main"]
 
 
@@ -433,8 +435,8 @@ def _print_point(case, sol, safety: str) -> None:
     con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     _say_overrides(con, case)
     inl, out = sol.inlet, sol.outlet
-    con.print(f"exhaust {inl.mass_flow * 3600:.0f} kg/h, {inl.T - 273.15:.1f} C, "
-              f"{inl.p / 1e3:.1f} kPa; GHSV {sol.ghsv_per_h():.0f} 1/h (0 C, 101.325 kPa); "
+    con.print(f"exhaust {inl.mass_flow * 3600:.0f} kg/h, {inl.T - ZERO_C_K:.1f} C, "
+              f"{inl.p / 1e3:.1f} kPa; GHSV {sol.ghsv_per_h():.0f} 1/h ({NORMAL_CONDITIONS}); "
               f"NOx conversion {sol.nox_conversion() * 100:.1f} %")
     t = Table(title="Bricks (outlet values, wet ppm)")
     for col in ("brick", "role", "vol L", "T out C", "dp kPa", "NO", "NO2", "NH3", "N2O", "ok"):
@@ -442,7 +444,7 @@ def _print_point(case, sol, safety: str) -> None:
     for b in sol.bricks:
         o = b.outlet
         t.add_row(b.brick.name, b.brick.role, f"{b.brick.volume * 1e3:.0f}",
-                  f"{o.T - 273.15:.1f}", f"{b.dp.total_Pa / 1e3:.2f}", f"{o.ppm('NO'):.1f}",
+                  f"{o.T - ZERO_C_K:.1f}", f"{b.dp.total_Pa / 1e3:.2f}", f"{o.ppm('NO'):.1f}",
                   f"{o.ppm('NO2'):.1f}", f"{o.ppm('NH3'):.1f}", f"{o.ppm('N2O'):.1f}",
                   "yes" if b.converged else f"NO {b.residual:.0e}")
     con.print(t)
@@ -502,7 +504,7 @@ def _catalysts(args) -> int:
             rows = c.provenance_table()
             counts = [sum(r["provenance"].lower().startswith(k) for r in rows)
                       for k in ("transcribed", "from memory", "fitted")]
-            t.add_row(key, c.role, f"{c.valid_T[0] - 273.15:.0f}-{c.valid_T[1] - 273.15:.0f}",
+            t.add_row(key, c.role, f"{c.valid_T[0] - ZERO_C_K:.0f}-{c.valid_T[1] - ZERO_C_K:.0f}",
                       c.name, " / ".join(map(str, counts)))
         con.print(t)
         return 0

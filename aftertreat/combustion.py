@@ -38,6 +38,7 @@ import numpy as np
 from .errors import InputError, did_you_mean
 from .species import ELEMENT_MATRIX, ELEMENTS, INDEX, MOLAR_MASS, SPECIES
 from .stream import Stream
+from .units import P_ATM_PA
 
 __all__ = ["FUELS", "MINOR_SPECIES", "FuelBlend", "Combustion", "fuel_data", "fuel_elements",
            "fuel_molar_mass", "lhv_J_mol", "lhv_MJ_kg", "stoich_O2_mol_per_mol", "dry_air",
@@ -173,7 +174,7 @@ class Combustion:
 
 
 def combustion(power_kW: float, brake_efficiency: float, blend: FuelBlend, lambda_: float, *,
-               T_K: float, p_Pa: float = 101325.0, intake_humidity_g_kg: float | None = None,
+               T_K: float, p_Pa: float = P_ATM_PA, intake_humidity_g_kg: float | None = None,
                minor: dict | None = None, fuel_kW: float | None = None) -> Combustion:
     """Engine-out exhaust by atom balance (module docstring) and the fuel and air flows in.
 
@@ -256,7 +257,7 @@ def combustion_products(power_kW: float, brake_efficiency: float, blend: FuelBle
     return combustion(power_kW, brake_efficiency, blend, lambda_, **kw).exhaust
 
 
-def exhaust_from_measurements(*, T_K: float, p_Pa: float = 101325.0,
+def exhaust_from_measurements(*, T_K: float, p_Pa: float = P_ATM_PA,
                               mass_flow_kg_s: float | None = None,
                               molar_flow_mol_s: float | None = None, H2O_pct: float,
                               O2_pct: float | None = None, lambda_: float | None = None,

@@ -30,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
+from .units import ZERO_C_K
 
 __all__ = ["AnrMap", "StorageController", "parse_map"]
 
@@ -62,7 +63,7 @@ def parse_map(table, key: str, column: str, file: str | None, lo: float, hi: flo
     if np.any(v < lo) or np.any(v > hi):
         raise InputError(f"expected {column} within [{lo}, {hi}]", key=key + "." + column,
                          value=v.tolist(), file=file)
-    return AnrMap(T + 273.15, v)
+    return AnrMap(T + ZERO_C_K, v)
 
 
 @dataclass

@@ -71,6 +71,7 @@ from .case import _unknown, apply_set, parse_brick, read_toml
 from .transient_run import parse_transient
 from .errors import InputError, did_you_mean
 from .train import Train
+from .units import P_ATM_PA, ZERO_C_K
 
 __all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
 
@@ -230,9 +231,9 @@ def _engine_out(data, n, file) -> dict:
                          file=file)
     _unknown(e, _OUT_COMBUSTION if method == "combustion" else _OUT_MEASURED, file, pre)
     out = {"method": method,
-           "T_K": _per_mode(e, "T_C", n, file, pre, lo=0.0, hi=900.0) + 273.15,
+           "T_K": _per_mode(e, "T_C", n, file, pre, lo=0.0, hi=900.0) + ZERO_C_K,
            "p_Pa": _per_mode(e, "p_kPa", n, file, pre, lo=50.0, hi=1000.0, required=False,
-                             default=101.325) * 1e3,
+                             default=P_ATM_PA / 1e3) * 1e3,
            "NOx_ppm": _per_mode(e, "NOx_ppm", n, file, pre, lo=0.0, hi=1e5),
            "NO2_fraction": _per_mode(e, "NO2_fraction", n, file, pre, lo=0.0, hi=1.0,
                                      required=False, default=0.05),

@@ -37,6 +37,7 @@ import numpy as np
 from .combustion import fuel_data
 from .errors import ConvergenceError, InputError, did_you_mean
 from .species import INDEX, MOLAR_MASS, SPECIES
+from .species import nox as nox_of
 from .stream import Stream
 from .thermo import cp_molar, h_molar
 
@@ -51,7 +52,7 @@ def anr(stream: Stream) -> float:
 
     inf with NH3 and no NOx, nan with neither.
     """
-    nox = stream.F[INDEX["NO"]] + stream.F[INDEX["NO2"]]
+    nox = float(nox_of(stream.F))
     nh3 = stream.F[INDEX["NH3"]]
     if nox > 0:
         return float(nh3 / nox)
@@ -119,7 +120,7 @@ def dose(stream: Stream, method: str, target_anr: float, *, urea_mass_fraction: 
     if not (np.isfinite(T_supply_K) and 200.0 <= T_supply_K <= 400.0):
         raise InputError("expected a reagent supply temperature in 200..400 K",
                          key="T_supply_K", value=T_supply_K)
-    nox = stream.F[INDEX["NO"]] + stream.F[INDEX["NO2"]]
+    nox = float(nox_of(stream.F))
     nh3_add = max(0.0, target_anr * nox - stream.F[INDEX["NH3"]])
     if nh3_add == 0.0:
         return stream, reagent

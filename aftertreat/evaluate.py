@@ -15,9 +15,10 @@ import numpy as np
 from . import emissions
 from .errors import InputError
 from .output import brick_dict, stream_dict
-from .species import ELEMENT_MATRIX, INDEX, SPECIES
+from .species import ELEMENT_MATRIX, INDEX, NOX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
+from .units import NORMAL_CONDITIONS, ZERO_C_K
 
 __all__ = ["ModeResult", "CycleResult", "run_case", "mode_inlets", "engine_out_stream"]
 
@@ -49,8 +50,8 @@ class ModeResult:
         """The per-mode figures shared by the table and the JSON object (units in the keys)."""
         s = self.solution
         return {"weight": self.weight, "power_kW": self.power_kW,
-                "exhaust_kg_h": self.inlet.mass_flow * 3600.0, "T_in_C": self.inlet.T - 273.15,
-                "T_out_C": self.outlet.T - 273.15, "GHSV_per_h": s.ghsv_per_h(),
+                "exhaust_kg_h": self.inlet.mass_flow * 3600.0, "T_in_C": self.inlet.T - ZERO_C_K,
+                "T_out_C": self.outlet.T - ZERO_C_K, "GHSV_per_h": s.ghsv_per_h(),
                 "dp_kPa": s.dp_Pa / 1e3, "ANR": self.anr, "NOx_conversion": s.nox_conversion(),
                 "converged": s.converged, "element_balance_error": self.element_balance_error()}
 
@@ -76,7 +77,7 @@ def stream_emissions(s: Stream, air_CO2_mol_s: float = 0.0) -> dict:
             "NH3_g_h": emissions.mass_flow_g_h(F[INDEX["NH3"]], "NH3"),
             "CO2_g_h": emissions.mass_flow_g_h(co2, "CO2"),
             "ppmvd": {sp: dry[sp] for sp in ("NO", "NO2", "NH3", "N2O")} |
-                     {"NOx": dry["NO"] + dry["NO2"]},
+                     {"NOx": sum(dry[s] for s in NOX)},
             "O2_dry_pct": dry["O2"] * 1e-4, "H2O_pct": x_h2o * 100.0}
 
 
@@ -117,8 +118,8 @@ class CycleResult:
         for m in self.modes:
             e = m.emissions()
             rows.append({"mode": m.name, **m.summary(),
-                         "NOx_in_ppm_wet": m.inlet.ppm("NO") + m.inlet.ppm("NO2"),
-                         "NOx_out_ppm_wet": m.outlet.ppm("NO") + m.outlet.ppm("NO2"),
+                         "NOx_in_ppm_wet": m.inlet.ppm("NOx"),
+                         "NOx_out_ppm_wet": m.outlet.ppm("NOx"),
                          "NH3_in_ppm_wet": m.inlet.ppm("NH3"),
                          "NH3_out_ppm_wet": m.outlet.ppm("NH3"),
                          "N2O_out_ppm_wet": m.outlet.ppm("N2O"),
@@ -165,7 +166,7 @@ class CycleResult:
                 "engine_out_cycle": self.engine_out_cycle, "train_N2O": self.train_n2o(),
                 "limits": [r.to_dict() for r in self.limits],
                 "pass": self.passed, "converged": self.converged,
-                "GHSV_normal_conditions": "0 C, 101.325 kPa", "GWP_set": self.case.gwp_set,
+                "GHSV_normal_conditions": NORMAL_CONDITIONS, "GWP_set": self.case.gwp_set,
                 "warnings": self.warnings, "solve_s": self.seconds}
 
 

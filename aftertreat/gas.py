@@ -38,7 +38,7 @@ import numpy as np
 from . import thermo
 from .errors import InputError
 from .species import CANTERA_NAME, MOLAR_MASS, SPECIES
-from .units import R_GAS
+from .units import P_ATM_PA, R_GAS
 
 __all__ = ["GasProperties"]
 
@@ -89,7 +89,7 @@ class GasProperties:
         Table points, spaced uniformly in ln(T).
     """
 
-    def __init__(self, x, p: float = 101325.0, T_min: float = 300.0, T_max: float = 1300.0,
+    def __init__(self, x, p: float = P_ATM_PA, T_min: float = 300.0, T_max: float = 1300.0,
                  n_points: int = 12):
         x = np.asarray(x, dtype=float)
         if x.shape != (len(SPECIES),) or not np.all(np.isfinite(x)) or np.any(x < 0) \
@@ -117,7 +117,7 @@ class GasProperties:
         self._lnprop = np.log(table)
 
     @classmethod
-    def from_flows(cls, F, p: float = 101325.0, **kwargs) -> "GasProperties":
+    def from_flows(cls, F, p: float = P_ATM_PA, **kwargs) -> "GasProperties":
         """From molar flows F [mol/s] in SPECIES order (only their ratios matter)."""
         return cls(F, p, **kwargs)
 

@@ -42,7 +42,7 @@ import numpy as np
 
 from .errors import InputError, did_you_mean
 from .species import ELEMENT_MATRIX, INDEX, SPECIES
-from .units import R_GAS, to_si
+from .units import R_GAS, to_si, ZERO_C_K
 
 __all__ = ["FORMS", "Reaction", "Mechanism", "parse_equation", "arrhenius"]
 
@@ -288,7 +288,7 @@ def build_reaction(spec: dict, sites: list[str], *, file: str | None = None,
                          key=f"{where}.equation", value=spec.get("equation"), file=file)
 
     T_ref = _num(spec, "T_ref_C", "degC", file, where)
-    T_ref = T_ref + 273.15 if T_ref is not None else _num(spec, "T_ref", "K", file, where, 573.15)
+    T_ref = T_ref + ZERO_C_K if T_ref is not None else _num(spec, "T_ref", "K", file, where, 573.15)
     E = _num(spec, "E_kJ_mol", "kJ/mol", file, where)
     E = E * 1e3 if E is not None else _num(spec, "E", "J/mol", file, where, 0.0)
     if "k_ref" in spec and "A" in spec:
@@ -371,7 +371,7 @@ def build_reaction(spec: dict, sites: list[str], *, file: str | None = None,
             p = dict(p)
             K_ref = float(p.get("K_ref", 0.0))
             dH = float(p.get("dH_kJ_mol", 0.0)) * 1e3
-            Tr = float(p.get("T_ref_C", T_ref - 273.15)) + 273.15
+            Tr = float(p.get("T_ref_C", T_ref - ZERO_C_K)) + ZERO_C_K
             inh[INDEX[sp]] = (K_ref, dH, Tr)
         kw["inhibition"] = inh
         kw["inhibition_order"] = float(spec.get("inhibition_order", 1.0))

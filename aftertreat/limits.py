@@ -36,6 +36,8 @@ from importlib import resources
 
 from .emissions import co2e_g, o2_reference, ppm_to_mg_Nm3, weighted_specific_emission, wet_ppm
 from .errors import InputError, did_you_mean
+from .species import NOX
+from .units import P_NORMAL_PA, T_NORMAL_K
 
 __all__ = ["QUANTITIES", "LimitRow", "LimitSet", "LimitCheck", "basis_label", "group_label",
            "governing", "ModeEmissions",
@@ -281,8 +283,8 @@ def load_limit_set(key: str) -> LimitSet:
 
 
 def custom_limits(rows: list[dict], file: str | None = None, *, name: str = "custom limits",
-                  o2_air_pct: float = 20.9, T_normal_K: float = 273.15,
-                  p_normal_Pa: float = 101325.0, round_decimals: int | None = None) -> LimitSet:
+                  o2_air_pct: float = 20.9, T_normal_K: float = T_NORMAL_K,
+                  p_normal_Pa: float = P_NORMAL_PA, round_decimals: int | None = None) -> LimitSet:
     """A user-defined limit set. Each row: ``name``, ``quantity`` (see the vocabulary),
     ``value``, ``unit`` (must match the quantity), ``o2_ref_pct`` (for ppmvd and mg/Nm3
     quantities), ``source``; optional ``scope``, ``clause``, ``confidence``, ``min_load_pct``."""
@@ -324,7 +326,7 @@ def _ppm(m: ModeEmissions, species: str) -> float:
     if species in c:
         return float(c[species])
     if species == "NOx" and "NO" in c and "NO2" in c:
-        return float(c["NO"]) + float(c["NO2"])
+        return sum(float(c[s]) for s in NOX)
     raise InputError(f"mode has no dry concentration of {species}", key=f"mode {m.name}.ppmvd",
                      value=sorted(c))
 

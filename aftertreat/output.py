@@ -16,6 +16,7 @@ from .dosing import anr
 from .species import INDEX, SPECIES
 from .stream import Stream
 from .train import TrainSolution
+from .units import NORMAL_CONDITIONS, ZERO_C_K
 
 __all__ = ["stream_dict", "brick_dict", "point_dict", "write_atomic", "SAFETY_NOTE"]
 
@@ -40,7 +41,7 @@ def brick_dict(b) -> dict:
     """One brick of a solved train (a :class:`~aftertreat.reactor.BrickSolution`) for JSON."""
     return {"name": b.brick.name, "role": b.brick.role,
             "catalysts": [c.key for c in b.brick.catalysts],
-            "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - 273.15,
+            "volume_L": b.brick.volume * 1e3, "T_out_C": b.outlet.T - ZERO_C_K,
             "dp_kPa": b.dp.total_Pa / 1e3, "converged": b.converged,
             "residual": b.residual, "iterations": b.iterations,
             "outlet": stream_dict(b.outlet)}
@@ -51,8 +52,8 @@ def point_dict(case_title: str, sol: TrainSolution) -> dict:
     bricks = [brick_dict(b) for b in sol.bricks]
     return {"schema": "aftertreat.point/1", "case": case_title,
             "exhaust_kg_h": sol.inlet.mass_flow * 3600.0,
-            "T_in_C": sol.inlet.T - 273.15, "T_out_C": sol.outlet.T - 273.15,
-            "GHSV_per_h": sol.ghsv_per_h(), "GHSV_normal_conditions": "0 C, 101.325 kPa",
+            "T_in_C": sol.inlet.T - ZERO_C_K, "T_out_C": sol.outlet.T - ZERO_C_K,
+            "GHSV_per_h": sol.ghsv_per_h(), "GHSV_normal_conditions": NORMAL_CONDITIONS,
             "dp_kPa": sol.dp_Pa / 1e3,
             "ANR": anr(sol.inlet), "NOx_conversion": sol.nox_conversion(),
             "converged": sol.converged, "element_balance_error": sol.element_balance_error,

@@ -52,6 +52,7 @@ from .problem import BrickProblem, StateLayout, problem_for
 from .solver import SolverSettings, WarmStart, solve
 from .species import INDEX, SPECIES
 from .stream import Stream
+from .units import ZERO_C_K
 
 __all__ = ["BrickSolution", "solve_brick", "SolverSettings", "require_converged", "WarmStart"]
 
@@ -145,8 +146,8 @@ def solve_brick(brick: Brick, inlet: Stream, *, guess: "WarmStart | BrickSolutio
             lo, hi = cat.valid_T
             if not lo - 1e-9 <= inlet.T <= hi + 1e-9:
                 range_notes.append(
-                    f"inlet temperature {inlet.T - 273.15:.1f} C is outside the validity range "
-                    f"{lo - 273.15:.0f}..{hi - 273.15:.0f} C of '{cat.key}': the rates are "
+                    f"inlet temperature {inlet.T - ZERO_C_K:.1f} C is outside the validity range "
+                    f"{lo - ZERO_C_K:.0f}..{hi - ZERO_C_K:.0f} C of '{cat.key}': the rates are "
                     "extrapolated")
     if isinstance(guess, BrickSolution):
         guess = guess.warm_start
@@ -184,9 +185,9 @@ def package(prob: BrickProblem, bound, out, seconds: float) -> BrickSolution:
     for cat in b.catalysts:
         lo, hi = cat.valid_T
         if Ts.max() > hi or Ts.min() < lo:
-            notes.append(f"catalyst temperature reached {Ts.min() - 273.15:.0f}.."
-                         f"{Ts.max() - 273.15:.0f} C, outside the validity range "
-                         f"{lo - 273.15:.0f}..{hi - 273.15:.0f} C of '{cat.key}'")
+            notes.append(f"catalyst temperature reached {Ts.min() - ZERO_C_K:.0f}.."
+                         f"{Ts.max() - ZERO_C_K:.0f} C, outside the validity range "
+                         f"{lo - ZERO_C_K:.0f}..{hi - ZERO_C_K:.0f} C of '{cat.key}'")
     z = prob.z_edges
     warm = WarmStart(layout=lay, z_edges=z, x=x, factors=out.factors, kernel=out.kernel)
     return BrickSolution(

@@ -658,7 +658,6 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
 
     def search(designs, L_scr, L_asc, first_step, passes):
         """Alternate SCR and slip-catalyst sizing on ``designs``; returns lengths and status."""
-        nonlocal feasible
 
         def f_scr(L):
             if progress:

@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .problem import NSP, BoundProblem, StateLayout
+from .problem import BoundProblem, StateLayout
 from .species import ELEMENT_MATRIX, INDEX
 from .units import R_GAS
 

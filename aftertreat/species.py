@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["SPECIES", "ELEMENTS", "INDEX", "ELEMENT_MATRIX", "MOLAR_MASS", "CANTERA_NAME",
+__all__ = ["SPECIES", "ELEMENTS", "INDEX", "NOX", "nox", "ELEMENT_MATRIX", "MOLAR_MASS", "CANTERA_NAME",
            "NOX", "species_index", "parse_formula"]
 
 #: Gas species carried in every stream, in the order used by every array in the library.
@@ -22,6 +22,16 @@ INDEX: dict[str, int] = {s: i for i, s in enumerate(SPECIES)}
 CANTERA_NAME: dict[str, str] = {s: ("AR" if s == "Ar" else s) for s in SPECIES}
 #: The species counted as NOx (mass reported as NO2, 40 CFR 1065.1005).
 NOX: tuple[str, ...] = ("NO", "NO2")
+#: Their positions in :data:`SPECIES`.
+NOX_INDEX: list[int] = [INDEX[s] for s in NOX]
+
+
+def nox(F):
+    """NOx (NO + NO2) of species flows or fractions ``F`` [..., nspecies] (any last-axis
+    array: mol/s, ppm ...)."""
+    import numpy as np
+    return np.asarray(F)[..., NOX_INDEX].sum(axis=-1)
+
 
 _ATOMIC_WEIGHT_G_MOL = {"N": 14.007, "H": 1.008, "O": 15.999, "C": 12.011, "Ar": 39.95}
 

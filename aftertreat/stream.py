@@ -10,8 +10,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
-from .species import ELEMENT_MATRIX, INDEX, MOLAR_MASS, SPECIES
-from .units import R_GAS
+from .species import ELEMENT_MATRIX, INDEX, MOLAR_MASS, NOX, SPECIES
+from .units import P_ATM_PA, R_GAS
 
 __all__ = ["Stream"]
 
@@ -21,7 +21,7 @@ class Stream:
     """Molar flows ``F`` [mol/s] in :data:`~aftertreat.species.SPECIES` order, ``T`` [K], ``p`` [Pa]."""
     F: np.ndarray
     T: float
-    p: float = 101325.0
+    p: float = P_ATM_PA
 
     def __post_init__(self):
         F = np.asarray(self.F, dtype=float)
@@ -42,7 +42,7 @@ class Stream:
 
     # ---- constructors -----------------------------------------------------------------------
     @classmethod
-    def from_mole_fractions(cls, x: dict[str, float], *, T: float, p: float = 101325.0,
+    def from_mole_fractions(cls, x: dict[str, float], *, T: float, p: float = P_ATM_PA,
                             total_mol_s: float | None = None, mass_kg_s: float | None = None,
                             balance: str = "N2") -> "Stream":
         """Build a stream from wet mole fractions; ``balance`` takes what is left up to 1.
@@ -104,7 +104,9 @@ class Stream:
         return {s: float(v) for s, v in zip(SPECIES, dry / dry.sum() * 1e6)}
 
     def ppm(self, species: str) -> float:
-        """Wet ppm of one species."""
+        """Wet ppm of one species, or of ``"NOx"`` (NO + NO2, :data:`~aftertreat.species.NOX`)."""
+        if species == "NOx":
+            return float(sum(self.F[INDEX[s]] for s in NOX) / self.F.sum() * 1e6)
         return float(self.F[INDEX[species]] / self.F.sum() * 1e6)
 
     def atoms(self) -> np.ndarray:

@@ -37,14 +37,14 @@ from functools import lru_cache
 import numpy as np
 
 from .species import CANTERA_NAME, SPECIES
-from .units import R_GAS
+from .units import P_ATM_PA, R_GAS
 
 __all__ = ["P0_PA", "nasa7_coefficients", "cp_molar", "h_molar", "s0_molar", "g0_molar",
            "reaction_enthalpy", "reaction_entropy", "reaction_gibbs",
            "equilibrium_constant_p", "equilibrium_constant_c"]
 
 #: Standard-state pressure of the thermodynamic data [Pa] (1 atm, as in gri30.yaml).
-P0_PA = 101325.0
+P0_PA = P_ATM_PA
 
 
 @lru_cache(maxsize=1)

@@ -25,7 +25,7 @@ import numpy as np
 from .combustion import exhaust_from_measurements
 from .errors import InputError, did_you_mean
 from .stream import Stream
-from .units import checked_unit_text, ureg
+from .units import checked_unit_text, P_ATM_PA, ureg, ZERO_C_K
 
 __all__ = ["QUANTITIES", "Trace", "read_trace"]
 
@@ -46,7 +46,7 @@ QUANTITIES = {
 }
 
 #: value of an absent optional column, in the SI unit of QUANTITIES (p: standard atmosphere)
-_DEFAULTS = {"p": 101325.0, "NO2_fraction": 0.0, "NH3": 0.0, "N2O": 0.0, "H2": 0.0}
+_DEFAULTS = {"p": P_ATM_PA, "NO2_fraction": 0.0, "NH3": 0.0, "N2O": 0.0, "H2": 0.0}
 #: Species an ammonia engine's trace must carry unless the case declares them zero
 #: ([transient] zero_columns): a missing NH3 or N2O column is far more often a lost column
 #: than an engine that emits none, and reading it as zero would hide the slip and the N2O.
@@ -58,7 +58,7 @@ DECLARE_ZERO = ("NH3", "N2O")
 _RANGES = {
     "power": (0.0, np.inf, True, "a power >= 0"),
     "exhaust_flow": (0.0, np.inf, False, "an exhaust flow > 0"),
-    "T": (273.15, 1173.15, True, "a temperature in 0..900 degC"),
+    "T": (ZERO_C_K, (ZERO_C_K + 900.0), True, "a temperature in 0..900 degC"),
     "p": (0.0, np.inf, False, "a pressure > 0"),
     "O2": (0.0, 21.0, True, "an O2 content in 0..21 %"),
     "H2O": (0.0, 60.0, True, "an H2O content in 0..60 %"),

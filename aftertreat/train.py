@@ -17,7 +17,7 @@ from .problem import signature
 from .reactor import BrickSolution, SolverSettings, solve_brick
 from .species import ELEMENT_MATRIX, INDEX, NOX, SPECIES
 from .stream import Stream
-from .units import P_NORMAL_PA, R_GAS, T_NORMAL_K
+from .units import P_NORMAL_PA, R_GAS, T_NORMAL_K, ZERO_C_K
 
 __all__ = ["Train", "TrainSolution"]
 
@@ -178,7 +178,7 @@ class TrainSolution:
                    "volume_L": b.volume * 1e3, "length_mm": b.length * 1e3,
                    "diameter_mm": b.diameter * 1e3,
                    "GHSV_per_h": ghsv_per_h(s.inlet, b.volume),
-                   "T_in_C": s.inlet.T - 273.15, "T_out_C": s.outlet.T - 273.15,
+                   "T_in_C": s.inlet.T - ZERO_C_K, "T_out_C": s.outlet.T - ZERO_C_K,
                    "dp_kPa": s.dp.total_Pa / 1e3}
             for sp in ("NO", "NO2", "NH3", "N2O"):
                 row[f"{sp}_out_ppm_wet"] = s.outlet.ppm(sp)
@@ -202,8 +202,8 @@ class TrainSolution:
             tot = s.F.sum(axis=1)
             for sp in SPECIES:
                 d[f"{sp}_ppm_wet"] = s.F[:, INDEX[sp]] / tot * 1e6
-            d["T_gas_C"] = s.T_gas - 273.15
-            d["T_solid_C"] = s.T_solid - 273.15
+            d["T_gas_C"] = s.T_gas - ZERO_C_K
+            d["T_solid_C"] = s.T_solid - ZERO_C_K
             for k, cat in enumerate(s.brick.catalysts):
                 first = int(np.nonzero(s.node_layer == k)[0][0])
                 for j, site in enumerate(cat.mechanism.sites):

@@ -39,11 +39,16 @@ from . import dosing as dosing_mod
 from .control import AnrMap, StorageController, parse_map
 from .emissions import dry_ppm
 from .errors import InputError, did_you_mean
-from .species import INDEX
+from .species import INDEX, MOLAR_MASS
+from .species import nox as nox_of
 from .stream import Stream
 from .transient import TransientResult, TransientSettings, simulate, start
+from .units import P_ATM_PA, ZERO_C_K
 
 __all__ = ["parse_transient", "timeline", "run_transient", "TransientRun", "Timeline"]
+
+#: NH3 molar mass [g/mol] (from the species table)
+M_NH3_G = float(MOLAR_MASS[INDEX["NH3"]]) * 1e3
 
 _KEYS = {"trace", "basis", "columns", "zero_columns", "hold_s", "ramp_s", "dt_s", "start",
          "T_start_C", "conduction", "dosing"}
@@ -242,10 +247,10 @@ class _Doser:
     def __call__(self, i: int, state) -> Stream:
         eo = self.tl.engine_out[i]
         if self.method == "none":
-            self.anr_cmd[i] = dosing_mod.anr(eo) if eo.F[INDEX["NO"]] + eo.F[INDEX["NO2"]] > 0 \
+            self.anr_cmd[i] = dosing_mod.anr(eo) if nox_of(eo.F) > 0 \
                 else 0.0
             return eo
-        nox = eo.F[INDEX["NO"]] + eo.F[INDEX["NO2"]]
+        nox_mol_s = float(nox_of(eo.F))
         if self.control == "fixed":
             target = self.tl.anr_fixed[i]
         elif self.control == "map" or state is None:
@@ -254,7 +259,7 @@ class _Doser:
             if self.capacity is None:
                 self.capacity = float(state.capacity_mol()[self.scr].sum())
             stored = float(state.stored_nh3_mol()[self.scr].sum())
-            target = self.ctrl.anr(eo.T, nox, stored, self.capacity)
+            target = self.ctrl.anr(eo.T, nox_mol_s, stored, self.capacity)
         self.anr_cmd[i] = target
         inlet, reagent = dosing_mod.dose(eo, self.method, float(target),
                                          urea_mass_fraction=self.case.dosing["urea_mass_fraction"])
@@ -314,7 +319,7 @@ class TransientRun:
     # -- per-step quantities --------------------------------------------------------------------
     def _outlet_streams(self) -> list[Stream]:
         r = self.result
-        return [Stream(F=r.outlet_F[i], T=r.outlet_T_K[i], p=101325.0) for i in range(len(r.t_s))]
+        return [Stream(F=r.outlet_F[i], T=r.outlet_T_K[i], p=P_ATM_PA) for i in range(len(r.t_s))]
 
     def step_emissions(self) -> list:
         """:class:`aftertreat.limits.ModeEmissions` of the train outlet at every step (the
@@ -338,19 +343,19 @@ class TransientRun:
         ppm_in = r.inlet_F / r.inlet_F.sum(axis=1, keepdims=True) * 1e6
         cols = {"t_s": r.t_s, "power_kW": self.timeline.power_kW,
                 "exhaust_kg_h": [s.mass_flow * 3600.0 for s in self.timeline.engine_out],
-                "T_in_C": r.inlet_T_K - 273.15, "T_out_C": r.outlet_T_K - 273.15,
+                "T_in_C": r.inlet_T_K - ZERO_C_K, "T_out_C": r.outlet_T_K - ZERO_C_K,
                 "ANR_in": (r.inlet_F[:, INDEX["NH3"]] / np.maximum(
-                    r.inlet_F[:, INDEX["NO"]] + r.inlet_F[:, INDEX["NO2"]], 1e-300)),
+                    nox_of(r.inlet_F), 1e-300)),
                 "ANR_target": self.anr_cmd,
-                "NH3_dosed_g_h": self.reagent_mol_s[:, INDEX["NH3"]] * 17.031 * 3600.0,
-                "NOx_in_ppm_wet": ppm_in[:, INDEX["NO"]] + ppm_in[:, INDEX["NO2"]],
+                "NH3_dosed_g_h": self.reagent_mol_s[:, INDEX["NH3"]] * M_NH3_G * 3600.0,
+                "NOx_in_ppm_wet": nox_of(ppm_in),
                 "NH3_in_ppm_wet": ppm_in[:, INDEX["NH3"]]}
         for sp in ("NO", "NO2", "NH3", "N2O"):
             cols[f"{sp}_out_ppmvd"] = dry_ppm(ppm_out[:, INDEX[sp]], x_h2o)
         cols["NOx_out_ppmvd"] = cols["NO_out_ppmvd"] + cols["NO2_out_ppmvd"]
         for k, name in enumerate(r.brick_names):
-            cols[f"{name}_stored_NH3_g"] = r.stored_nh3_mol[:, k] * 17.031
-            cols[f"{name}_T_solid_mean_C"] = r.solid_T_mean_K[:, k] - 273.15
+            cols[f"{name}_stored_NH3_g"] = r.stored_nh3_mol[:, k] * M_NH3_G
+            cols[f"{name}_T_solid_mean_C"] = r.solid_T_mean_K[:, k] - ZERO_C_K
         cols["converged"] = r.converged
         return pd.DataFrame(cols)
 
@@ -484,7 +489,7 @@ def run_transient(case, *, train=None, progress=None,
     if tr["start"] == "steady":
         state = start(train, inlet0, settings=st)
     else:
-        T0 = tr["T_start_C"] + 273.15 if tr["T_start_C"] is not None else None
+        T0 = tr["T_start_C"] + ZERO_C_K if tr["T_start_C"] is not None else None
         state = start(train, inlet0, steady=False, T_start_K=T0, settings=st)
     res = simulate(train, tl.t_s, lambda i, s: inlet0 if i == 0 else doser(i, s), state=state,
                    settings=st, progress=progress)

@@ -10,14 +10,20 @@ from functools import lru_cache
 
 from .errors import InputError
 
-__all__ = ["ureg", "to_si", "from_si", "MIL", "T_NORMAL_K", "P_NORMAL_PA", "R_GAS"]
+__all__ = ["ureg", "to_si", "from_si", "MIL", "ZERO_C_K", "P_ATM_PA", "T_NORMAL_K",
+           "P_NORMAL_PA", "NORMAL_CONDITIONS", "R_GAS"]
 
 #: Molar gas constant [J/(mol K)] (CODATA 2018, exact by SI definition).
 R_GAS = 8.314462618
+#: 0 degC in kelvin (SI definition), for every conversion between degC and K.
+ZERO_C_K = 273.15
+#: The standard atmosphere [Pa] (exact by definition): the default pressure of streams.
+P_ATM_PA = 101325.0
 #: Default normal conditions for GHSV and normal volumes: 0 degC and 101.325 kPa (common practice;
-#: limit sets may choose others).
-T_NORMAL_K = 273.15
-P_NORMAL_PA = 101325.0
+#: limit sets may choose others), and how outputs name them.
+T_NORMAL_K = ZERO_C_K
+P_NORMAL_PA = P_ATM_PA
+NORMAL_CONDITIONS = f"{T_NORMAL_K - ZERO_C_K:g} C, {P_NORMAL_PA / 1e3:g} kPa"
 #: One "mil" (thousandth of an inch), the trade unit of honeycomb wall thickness [m].
 MIL = 25.4e-6
 

@@ -12,7 +12,6 @@ from aftertreat.cli import main
 from aftertreat.cyclecase import load_run_case
 from aftertreat.errors import InputError
 from aftertreat.evaluate import mode_inlets, run_case
-from aftertreat.species import INDEX
 
 #: no dosing, one Cu-CHA brick, the IMO Tier III set (shared by both cases)
 TAIL = """[dosing]

@@ -24,6 +24,7 @@ from aftertreat.errors import InputError
 from aftertreat.output import SAFETY_NOTE
 
 from .session import Session
+from aftertreat.units import ZERO_C_K
 
 __all__ = ["CycleApp", "main"]
 
@@ -298,7 +299,7 @@ class CycleApp(App):
         sol = m.solution
         head = (f"Mode {m.name} ({self.mode_index + 1}/{len(s.result.modes)}): "
                 f"{m.power_kW:.0f} kW, exhaust {m.inlet.mass_flow * 3600:.0f} kg/h, "
-                f"T in {m.inlet.T - 273.15:.0f} C, ANR {_f(m.anr, '.2f')}, "
+                f"T in {m.inlet.T - ZERO_C_K:.0f} C, ANR {_f(m.anr, '.2f')}, "
                 f"NOx conversion {100 * sol.nox_conversion():.1f} %, dp {sol.dp_Pa / 1e3:.2f} kPa, "
                 f"GHSV {sol.ghsv_per_h():.0f} 1/h")
         self.query_one("#profile-head", Static).update(Text(head))
@@ -348,8 +349,8 @@ class CycleApp(App):
                            w, h, x_label="distance along the train [mm]", y_label="ppm wet",
                            log_y=True, markers=marks[:-1])
         self.query_one("#plot-species", Static).update(chart)
-        Tg = np.concatenate([b.T_gas for b in sol.bricks]) - 273.15
-        Ts = np.concatenate([b.T_solid for b in sol.bricks]) - 273.15
+        Tg = np.concatenate([b.T_gas for b in sol.bricks]) - ZERO_C_K
+        Ts = np.concatenate([b.T_solid for b in sol.bricks]) - ZERO_C_K
         t_chart = line_chart([("gas T", x, Tg, "white"), ("solid T", x, Ts, "green")], w, h,
                              x_label="distance along the train [mm]", y_label="C",
                              markers=marks[:-1])
