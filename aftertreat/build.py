@@ -1,9 +1,13 @@
 """Manufacturing rules: the lengths a catalyst brick can be built in.
 
 A brick of substrate kind ``k`` is built in whole multiples of ``step_mm`` between ``min_mm``
-and ``max_mm`` (one layer of extruded or plate elements, or one coated brick). The defaults per
-kind are in ``data/build_rules.toml`` (common practice, from memory); a case overrides any of
-them in ``[sizing.build.<kind>]``. Sizing searches the lengths continuously within
+and ``max_mm`` (one layer of extruded or plate elements, or one coated brick), optionally with
+its length-to-diameter ratio within [``L_D_min``, ``L_D_max``] (canning and flow
+distribution). A sized section of that kind may have between ``min_layers`` and
+``max_layers`` bricks (default: as many as the case has): the sizer adds a layer when the
+section cannot comply at its longest, and drops one when fewer make a smaller train. The
+defaults per kind are in ``data/build_rules.toml`` (common practice, from memory); a case
+overrides any of them in ``[sizing.build.<kind>]``. Sizing searches the lengths continuously within
 [min, max] and then rounds every sized brick up to its next buildable length
 (:func:`BuildRule.round_up`); the keys are listed with the other ``[sizing]`` keys in
 :mod:`aftertreat.cyclecase`.
@@ -19,7 +23,10 @@ from .geometry import KINDS
 
 __all__ = ["BuildRule", "default_rules", "parse_build_rules"]
 
-_KEYS = ("step_mm", "min_mm", "max_mm")
+_LENGTH_KEYS = ("step_mm", "min_mm", "max_mm")
+_RATIO_KEYS = ("L_D_min", "L_D_max")
+_LAYER_KEYS = ("min_layers", "max_layers")
+_KEYS = _LENGTH_KEYS + _RATIO_KEYS + _LAYER_KEYS
 
 
 @dataclass(frozen=True)
@@ -30,6 +37,28 @@ class BuildRule:
     min_mm: float
     max_mm: float
     provenance: str
+    L_D_min: float | None = None          # bounds on length / diameter of one brick
+    L_D_max: float | None = None
+    min_layers: int | None = None         # bricks of this kind in a sized section (None: the
+    max_layers: int | None = None         # case's count)
+
+    def length_range_m(self, diameter_m: float) -> tuple[float, float]:
+        """(shortest, longest) buildable length [m] of one brick at ``diameter_m``: whole
+        steps within [min_mm, max_mm] and within the L/D bounds."""
+        lo, hi = self.shortest_m, self.longest_m
+        if self.L_D_min is not None:
+            lo = max(lo, self.round_up_free(self.L_D_min * diameter_m))
+        if self.L_D_max is not None:
+            hi = min(hi, self.round_down_free(self.L_D_max * diameter_m))
+        return lo, hi
+
+    def round_up_free(self, length_m: float) -> float:
+        """The next whole step >= ``length_m`` [m], without the [min, max] clamp."""
+        return math.ceil(length_m * 1e3 / self.step_mm - 1e-6) * self.step_mm / 1e3
+
+    def round_down_free(self, length_m: float) -> float:
+        """The last whole step <= ``length_m`` [m], without the [min, max] clamp."""
+        return math.floor(length_m * 1e3 / self.step_mm + 1e-6) * self.step_mm / 1e3
 
     @property
     def shortest_m(self) -> float:
@@ -56,8 +85,16 @@ class BuildRule:
         return min(self.round_up(length_m) + self.step_mm / 1e3, self.longest_m)
 
     def describe(self) -> str:
+        extra = []
+        if self.L_D_min is not None or self.L_D_max is not None:
+            extra.append(f"L/D {self.L_D_min if self.L_D_min is not None else 0:g}-"
+                         + (f"{self.L_D_max:g}" if self.L_D_max is not None else "any"))
+        if self.min_layers is not None or self.max_layers is not None:
+            lo = self.min_layers if self.min_layers is not None else "the case's count"
+            hi = self.max_layers if self.max_layers is not None else "the case's count"
+            extra.append(f"from {lo} to {hi} bricks per section")
         return (f"{self.kind}: {self.step_mm:g} mm steps, {self.min_mm:g}-{self.max_mm:g} mm "
-                f"per brick ({self.provenance})")
+                f"per brick" + "".join(f", {e}" for e in extra) + f" ({self.provenance})")
 
 
 @lru_cache(maxsize=1)
@@ -94,11 +131,24 @@ def parse_build_rules(table, file) -> dict[str, BuildRule]:
             if k not in _KEYS:
                 raise InputError(f"expected one of {', '.join(_KEYS)}",
                                  key=f"sizing.build.{kind}.{k}", value=k, file=file)
-            if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 < v <= 1e5:
-                raise InputError("expected a length in mm within (0, 100000]",
-                                 key=f"sizing.build.{kind}.{k}", value=v, file=file)
-        r = replace(rules[kind], **{k: float(v) for k, v in over.items()},
-                    provenance="from the case")
+            where = f"sizing.build.{kind}.{k}"
+            if k in _LAYER_KEYS:
+                if not isinstance(v, int) or isinstance(v, bool) or not 1 <= v <= 20:
+                    raise InputError("expected a whole number of bricks within [1, 20]",
+                                     key=where, value=v, file=file)
+            elif k in _RATIO_KEYS:
+                if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 < v <= 50:
+                    raise InputError("expected a length/diameter ratio within (0, 50]",
+                                     key=where, value=v, file=file)
+            elif not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 < v <= 1e5:
+                raise InputError("expected a length in mm within (0, 100000]", key=where,
+                                 value=v, file=file)
+        for a, b in (("L_D_min", "L_D_max"), ("min_layers", "max_layers")):
+            if a in over and b in over and over[a] > over[b]:
+                raise InputError(f"expected {a} <= {b}", key=f"sizing.build.{kind}.{a}",
+                                 value=over[a], file=file)
+        r = replace(rules[kind], **{k: (int(v) if k in _LAYER_KEYS else float(v))
+                                    for k, v in over.items()}, provenance="from the case")
         if r.shortest_m > r.longest_m + 1e-12:
             raise InputError(f"no whole step of {r.step_mm:g} mm lies within "
                              f"[{r.min_mm:g}, {r.max_mm:g}] mm", key=f"sizing.build.{kind}",

@@ -300,8 +300,9 @@ def apply_set(data: dict, assignment: str, file: str) -> dict:
     """Apply one ``KEY=VALUE`` what-if to a copy of the case data.
 
     KEY is the dotted path in the case file; list items by index or by their ``name``
-    (``brick.0.length`` or ``brick.SCR 1.length``). Only existing tables may be entered, and the
-    last key must be one the table accepts (it is validated with the rest of the case).
+    (``brick.0.length`` or ``brick.SCR 1.length``). A table the case leaves out is made (e.g.
+    ``sizing.build.extruded.step_mm=100``); every key is validated with the rest of the case, so
+    a misspelt table or key is refused there, by name.
     """
     if "=" not in assignment:
         raise InputError("expected KEY=VALUE", key="--set", value=assignment, file=file)
@@ -326,9 +327,8 @@ def apply_set(data: dict, assignment: str, file: str) -> dict:
                                  key=f"--set {where}", value=k, file=file)
             node = node[idx]
         elif isinstance(node, dict):
-            if k not in node:
-                raise InputError("no such table in the case" + did_you_mean(k, node),
-                                 key=f"--set {where}", value=k, file=file)
+            if k not in node:     # a table the case leaves out: made here, and the parser
+                node[k] = {}      # then refuses it (naming the key) if it is not a valid one
             node = node[k]
         else:
             raise InputError("not a table", key=f"--set {where}", file=file)

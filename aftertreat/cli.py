@@ -305,6 +305,8 @@ def _print_size(res, safety: str, report: str | None) -> None:
         con.print(f"buildable lengths, {rule}")
     if res.diameter_reason:
         con.print(f"diameter: {res.diameter_reason}")
+    if res.layers:
+        con.print(f"layers: {escape(res.layers)}")
     if case.dosing["method"] != "none":
         con.print("ANR per mode (NH3/NOx dosed): " + ", ".join(
             f"{m.name} {m.anr:.2f}" for m in res.run.modes))

@@ -100,6 +100,7 @@ class SizingResult:
     build_rules: list[str] = field(default_factory=list)    # the rules applied, in words
     diameter_reason: str = ""
     objective: str = ""                # what was minimised, and what that search did
+    layers: str = ""                   # bricks added or dropped within the build rules
 
     def brick_rows(self) -> list[dict]:
         return _brick_rows(self.train)
@@ -115,6 +116,7 @@ class SizingResult:
                 "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
                 "continuous_optimum": self.continuous, "build_rules": self.build_rules,
                 "diameter_reason": self.diameter_reason, "objective": self.objective,
+                "layers": self.layers,
                 "train_N2O": self.run.train_n2o(),
                 "ANR_per_mode": {m.name: float(m.anr) for m in self.run.modes},
                 "curves": self.curves, "evaluations": self.evaluations,
@@ -194,11 +196,10 @@ class _Designs:
         self.case, self.D, self.grid, self.settings = case, diameter, grid, settings
         self.inlets = mode_inlets(case) if inlets is None else inlets
         b = case.train.bricks
-        self.scr = [i for i, x in enumerate(b) if x.role == "SCR"]
+        sec = self.sections(case)
+        self.scr, self.asc = sec["SCR"], sec["ASC"]
         if not self.scr:
             raise InputError("the train has no SCR brick to size", key="brick", file=case.file)
-        last = max(self.scr)
-        self.asc = [i for i, x in enumerate(b) if i > last and x.role in ("ASC", "oxidation")]
         self.L_scr0 = sum(b[i].length for i in self.scr)
         self.L_asc0 = sum(b[i].length for i in self.asc)
         self.cache: dict[tuple[float, float], object] = {}
@@ -206,6 +207,15 @@ class _Designs:
         self.extra = 0                  # explicit trains evaluated (:meth:`run`)
         self.limits: dict[int, tuple[float, float]] = {}   # brick -> (shortest, longest) [m]
         self.seed = None                # warm-start guesses for the first design (per mode)
+
+    @staticmethod
+    def sections(case) -> dict[str, list[int]]:
+        """Brick indices of the SCR section and of the slip-catalyst section after it."""
+        b = case.train.bricks
+        scr = [i for i, x in enumerate(b) if x.role == "SCR"]
+        last = max(scr) if scr else -1
+        return {"SCR": scr, "ASC": [i for i, x in enumerate(b)
+                                    if i > last and x.role in ("ASC", "oxidation")]}
 
     def train(self, L_scr: float, L_asc: float) -> Train:
         b = self.case.train.bricks
@@ -247,7 +257,12 @@ class _Designs:
         out = {}
         for i in idx:
             rule = rules[b[i].substrate.kind]
-            lo, hi, why = rule.shortest_m, rule.longest_m, f"sizing.build.{rule.kind}.max_mm"
+            lo, hi = rule.length_range_m(self.D)
+            why = (f"sizing.build.{rule.kind}.max_mm" if hi >= rule.longest_m - 1e-12 else
+                   f"sizing.build.{rule.kind}.L_D_max")
+            if lo > hi:                    # the L/D bounds leave no buildable length here
+                out[i] = (lo, hi, why)
+                continue
             x = dataclasses.replace(b[i], diameter=self.D)
             sub = x.substrate
             for inl, gas in gases:
@@ -525,6 +540,10 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     the sized train meets ``dp_max_kPa``: in laminar channels at a given catalyst volume the
     pressure drop scales as V/D^4 (Hagen-Poiseuille), so D <- D (dp/budget)^(1/4), repeated
     until within 2 % (at most four sizings).
+
+    Layers: where ``[sizing.build.<kind>]`` allows more or fewer bricks than the case has
+    (``max_layers``, ``min_layers``), :func:`_size_layers` adds a brick to a section that
+    cannot comply at its longest, or drops one when the train with fewer is smaller.
     """
     if case.cycle is None:
         raise InputError("sizing works on the modes of a [cycle]; this case is a time trace "
@@ -538,15 +557,87 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
         anr = choose_anr(case, m, sz.get("ANR_excess", 0.05))
         if np.any(anr < case.dosing["ANR"] - 1e-12):
             chosen = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
-            res = _size_with_diameter(chosen, progress, curves)
+            res = _size_layers(chosen, progress, curves)
             if res.feasible:
                 res.seconds = time.perf_counter() - t0
                 return res
             # dosing to the target is not enough within the envelope: try the case's upper bound
             if progress:
                 progress("ANR at the case's upper bound")
-    res = _size_with_diameter(case, progress, curves)
+    res = _size_layers(case, progress, curves)
     res.seconds = time.perf_counter() - t0
+    return res
+
+
+def _layer_bounds(case, idx) -> tuple[int, int]:
+    """(fewest, most) bricks of the section ``idx`` (brick indices) allowed by the build rules
+    of its substrate kind; the case's count where the rules say nothing."""
+    rules = case.sizing["build"]
+    kinds = {case.train.bricks[i].substrate.kind for i in idx}
+    n = len(idx)
+    if len(kinds) != 1:                   # mixed kinds: keep the case's bricks
+        return n, n
+    r = rules[kinds.pop()]
+    lo = r.min_layers if r.min_layers is not None else n
+    hi = r.max_layers if r.max_layers is not None else n
+    return min(lo, n), max(hi, n)
+
+
+def _relayer(case, idx, add: bool):
+    """``case`` with one more brick in the section ``idx`` (a copy of its last brick, after it)
+    or one fewer (its last brick removed), in the train and in the case data."""
+    import copy
+    bricks = list(case.train.bricks)
+    rows = copy.deepcopy(case.data["brick"])
+    last = idx[-1]
+    if add:
+        names = {b.name for b in bricks}
+        base = bricks[last].name.rstrip("0123456789").rstrip()
+        k = len(idx) + 1
+        name = f"{base} {k}"
+        while name in names:
+            k += 1
+            name = f"{base} {k}"
+        bricks.insert(last + 1, dataclasses.replace(bricks[last], name=name))
+        rows.insert(last + 1, dict(rows[last], name=name))
+    else:
+        del bricks[last]
+        del rows[last]
+    return dataclasses.replace(case, train=Train(bricks), data=dict(case.data, brick=rows))
+
+
+def _size_layers(case, progress, curves: bool = True) -> SizingResult:
+    """:func:`_size_with_diameter`, then layers within the build rules: while a section at its
+    longest still fails and may have another brick, add one and size again; while a section
+    may lose a brick and the train sized with one fewer complies and is smaller, take it."""
+    res = _size_with_diameter(case, progress, curves)
+    notes = []
+    for role in ("SCR", "ASC"):
+        d = _Designs.sections(res.case)
+        idx = d[role]
+        if not idx:
+            continue
+        fewest, most = _layer_bounds(res.case, idx)
+        n0 = len(idx)
+        while not res.feasible and len(idx) < most:
+            if progress:
+                progress(f"{role}: {len(idx) + 1} bricks")
+            trial = _size_with_diameter(_relayer(res.case, idx, add=True), progress, curves)
+            res = trial
+            idx = _Designs.sections(res.case)[role]
+        while res.feasible and len(idx) > fewest:
+            if progress:
+                progress(f"{role}: {len(idx) - 1} bricks")
+            trial = _size_with_diameter(_relayer(res.case, idx, add=False), progress, curves)
+            if not (trial.feasible and trial.train.volume < res.train.volume * (1 - 1e-9)):
+                break
+            res = trial
+            idx = _Designs.sections(res.case)[role]
+        if len(idx) != n0:
+            notes.append(f"{'SCR' if role == 'SCR' else 'slip-catalyst'} section in "
+                         f"{len(idx)} brick{'s' if len(idx) > 1 else ''} instead of the case's "
+                         f"{n0} (sizing.build.<kind>.min_layers / max_layers)")
+    res.layers = "; ".join(notes)
     return res
 
 
@@ -613,6 +704,18 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         lim = designs.brick_limits(idx, rules)
         if any(lo > hi for lo, hi, _ in lim.values()):
             i = next(i for i, (lo, hi, _) in lim.items() if lo > hi)
+            rule = rules[case.train.bricks[i].substrate.kind]
+            if rule.L_D_min is not None or rule.L_D_max is not None:
+                lo_, hi_ = rule.length_range_m(designs.D)
+                if lo_ > hi_:
+                    raise InputError(
+                        f"brick '{case.train.bricks[i].name}' cannot be built at a diameter of "
+                        f"{designs.D * 1e3:.0f} mm: its L/D bounds allow "
+                        f"{(rule.L_D_min or 0) * designs.D * 1e3:.0f}-"
+                        f"{(rule.L_D_max or math.inf) * designs.D * 1e3:.0f} mm and its whole "
+                        f"steps {rule.shortest_m * 1e3:.0f}-{rule.longest_m * 1e3:.0f} mm",
+                        key=f"sizing.build.{rule.kind}", value=f"L/D {rule.L_D_min}-"
+                        f"{rule.L_D_max}", file=case.file)
             raise InputError(f"brick '{case.train.bricks[i].name}' cannot be built: its "
                              f"shortest buildable length {lim[i][0] * 1e3:.0f} mm would lose "
                              "over 40 % of the inlet pressure", key=f"brick '{case.train.bricks[i].name}'",
