@@ -220,7 +220,7 @@ def _cycle(data, file):
     return cy.custom_cycle(c["mode"], file=file)
 
 
-def _engine_out(data, n, file) -> dict:
+def _engine_out(data, n, file, names=None) -> dict:
     e = data.get("engine_out")
     if not isinstance(e, dict):
         raise InputError("missing the [engine_out] table", key="engine_out", file=file)
@@ -263,6 +263,18 @@ def _engine_out(data, n, file) -> dict:
         if basis not in ("wet", "dry"):
             raise InputError("expected 'wet' or 'dry'", key=pre + "basis", value=basis, file=file)
         out["basis"] = basis
+        # a dry O2 above that of air cannot come out of an engine: refused at load, by mode
+        from .combustion import dry_air
+        from .species import INDEX
+        o2_air = 100.0 * float(dry_air()[INDEX["O2"]])
+        dry = out["O2_pct"] / (1.0 - out["H2O_pct"] / 100.0) if basis == "wet" \
+            else out["O2_pct"]
+        for i in np.nonzero(dry > o2_air)[0]:
+            mode = names[i] if names else str(i + 1)
+            raise InputError(f"mode '{mode}': the O2 and water give {dry[i]:.2f} % O2 dry, more "
+                             f"than dry air holds ({o2_air:.2f} %): check O2_pct, H2O_pct and "
+                             "basis", key=pre + "O2_pct", value=float(out["O2_pct"][i]),
+                             file=file)
     return out
 
 
@@ -397,7 +409,7 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     else:
         cycle = _cycle(data, file)
         n = len(cycle.modes)
-        engine_out = _engine_out(data, n, file)
+        engine_out = _engine_out(data, n, file, [m.name for m in cycle.modes])
     dosing = _dosing(data, n, file)
     bricks = data.get("brick")
     if not isinstance(bricks, list) or not bricks:

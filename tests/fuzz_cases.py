@@ -57,8 +57,8 @@ SCR_CATALYSTS: dict[str, tuple[str, ...]] = {
 #: Slip / oxidation catalysts that may close a train (always coated).
 TAIL_CATALYSTS = ("asc_dual_layer", "platinum_alumina")
 
-#: ISO cycles each application may use (idle-mode cycles are filtered out at run time: see
-#: :func:`_idle_free_cycles`).
+#: ISO cycles each application may use (idle-mode cycles are left out unless the case is drawn
+#: with ``idle=True``: see :func:`_idle_free_cycles`).
 _APP_CYCLES = {
     "marine propulsion": ("E2", "E3"),
     "auxiliary genset": ("D2",),
@@ -339,11 +339,21 @@ def _draw_fuel(rng: random.Random, app: str) -> tuple[dict, bool | None]:
     return shares, cracked
 
 
-def _draw_cycle(rng: random.Random, app: str) -> tuple[dict | None, list[dict] | None,
-                                                        list[float]]:
-    """(iso key table or None, custom mode tables or None, power fractions)."""
+#: ISO cycles with a zero-power (idle) mode, drawn by ``random_cycle_case(seed, idle=True)``
+#: for engines (ISO 8178-4 weights their g/h into the cycle; no g/kWh at idle)
+_IDLE_CYCLES = ("C1", "C2", "E1", "E5")
+
+
+def _draw_cycle(rng: random.Random, app: str, idle: bool = False
+                ) -> tuple[dict | None, list[dict] | None, list[float]]:
+    """(iso key table or None, custom mode tables or None, power fractions). With ``idle``
+    the cycle has a zero-power mode: a shipped idle cycle, or a custom cycle with an idle
+    mode added."""
     allowed = [k for k in _APP_CYCLES[app] if k in _idle_free_cycles()]
-    if allowed and rng.random() < 0.6:
+    if idle and rng.random() < 0.5:
+        key = rng.choice(_IDLE_CYCLES)
+        return {"iso8178": key}, None, _cycle_fractions(key)
+    if allowed and rng.random() < 0.6 and not idle:
         key = rng.choice(allowed)
         return {"iso8178": key}, None, _cycle_fractions(key)
     n = rng.randint(1, 6)
@@ -368,6 +378,14 @@ def _draw_cycle(rng: random.Random, app: str) -> tuple[dict | None, list[dict] |
         if rng.random() < 0.1:
             m["cap_exempt"] = True
         modes.append(m)
+    if idle:                       # one mode becomes idle: no power, a tenth of the weight
+        k = rng.randrange(len(modes))
+        modes[k] = {"name": "idle", "weight": modes[k]["weight"], "power_pct": 0.0}
+        fr[k] = 0.0
+        if len(modes) == 1:        # an idle-only cycle has no work: add a loaded mode
+            modes[0]["weight"] = 0.2
+            modes.append({"name": "loaded", "weight": 0.8, "power_pct": 75.0})
+            fr.append(0.75)
     return None, modes, fr
 
 
@@ -378,11 +396,16 @@ def _per_mode_or_scalar(rng: random.Random, values: list[float], digits: int):
     return [round(v, digits) for v in values]
 
 
-def random_cycle_case(seed: int) -> str:
-    """TOML text of a valid, invented duty-cycle case, drawn with ``random.Random(seed)``."""
-    rng = random.Random(seed)
+def random_cycle_case(seed: int, idle: bool = False) -> str:
+    """TOML text of a valid, invented duty-cycle case, drawn with ``random.Random(seed)``.
+    With ``idle`` the cycle has a zero-power mode (engines only; drawn from another stream,
+    so the seeds without it are unchanged); its exhaust is that of ``idle_fuel_pct`` of the
+    highest-power mode's fuel."""
+    rng = random.Random(seed if not idle else 1_000_003 + seed)
     app = rng.choice(("marine propulsion", "auxiliary genset", "stationary engine",
                       "gas turbine"))
+    if idle and app == "gas turbine":
+        app = "stationary engine"
     turbine = app == "gas turbine"
     if app == "marine propulsion":
         P = round(_loguniform(rng, 800.0, 25000.0))
@@ -396,7 +419,7 @@ def random_cycle_case(seed: int) -> str:
     else:
         P, speed = round(_loguniform(rng, 5000.0, 60000.0)), None
     shares, cracked = _draw_fuel(rng, app)
-    iso, custom, fracs = _draw_cycle(rng, app)
+    iso, custom, fracs = _draw_cycle(rng, app, idle)
     n = len(fracs)
     bricks = _draw_train(rng)
     ranges = [_catalyst_range_C(b["catalyst"]) for b in bricks]
@@ -412,7 +435,14 @@ def random_cycle_case(seed: int) -> str:
         eta_r, lam_r = rng.uniform(0.38, 0.48), rng.uniform(1.7, 2.4)
         eta = [max(0.12, eta_r * (1 - 0.45 * max(0.0, 1 - f) ** 2)) for f in fracs]
         lam = [min(9.0, lam_r * (1 + 0.9 * max(0.0, 1 - f))) for f in fracs]
-    est = [_exhaust_estimate(P * f, e, lm, shares, bool(cracked))
+    idle_pct = round(rng.uniform(2.0, 10.0), 2) if idle and rng.random() < 0.6 else None
+    top = max(range(len(fracs)), key=lambda i: fracs[i])
+    fuel_top_kW = P * fracs[top] / eta[top]
+    # an idle mode burns idle_fuel_pct (default 5) of the top mode's fuel: as brake power at
+    # its own efficiency, that is the same fuel flow
+    est = [_exhaust_estimate(P * f if f > 0 else
+                             (idle_pct or 5.0) / 100.0 * fuel_top_kW * e, e, lm, shares,
+                             bool(cracked))
            for f, e, lm in zip(fracs, eta, lam)]
 
     # -- engine-out minor species and dosing
@@ -501,6 +531,8 @@ def random_cycle_case(seed: int) -> str:
     else:
         eo["brake_efficiency"] = [round(e, 4) for e in eta]
         eo["lambda"] = [round(v, 3) for v in lam]
+        if idle_pct is not None:
+            eo["idle_fuel_pct"] = idle_pct
         if rng.random() < 0.5:
             eo["intake_humidity_g_kg"] = round(rng.uniform(2.0, 25.0), 2)
     _table(lines, "[engine_out]", eo)
@@ -650,8 +682,8 @@ def check_case_inputs(case) -> list[str]:
     V = case.train.volume
     for i, (power, eo, _air, inlet, reagent) in enumerate(mode_inlets(case)):
         m = case.cycle.modes[i].name
-        if not power > 0:
-            out.append(f"mode {m}: power {power} kW is not > 0")
+        if not power >= 0:
+            out.append(f"mode {m}: power {power} kW is negative")
         for s, label in ((eo, "engine-out"), (inlet, "train inlet")):
             F = s.F
             if not (np.all(np.isfinite(F)) and np.all(F >= 0) and F.sum() > 0):

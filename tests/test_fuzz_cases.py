@@ -112,6 +112,36 @@ def test_options_are_covered(tables):
     assert need <= seen, sorted(need - seen)
 
 
+IDLE_SEEDS = range(80)
+
+
+@pytest.fixture(scope="module")
+def idle_texts():
+    return {s: fc.random_cycle_case(s, idle=True) for s in IDLE_SEEDS}
+
+
+def test_idle_seeds_load_and_are_consistent(idle_texts, tmp_path):
+    """Cases drawn with an idle mode: each loads, has a zero-power mode and a positive-power
+    one, and its exhaust passes the same consistency checks (the idle exhaust comes from the
+    idle fuel share); shipped idle cycles and custom idle modes both occur."""
+    kinds = set()
+    for s, text in idle_texts.items():
+        case = fc.load_case_text(text, f"idle_{s}", tmp_path)
+        assert fc.check_case_inputs(case) == [], s
+        fr = case.cycle.power_fractions()
+        assert min(fr) == 0.0 and max(fr) > 0.0, s
+        kinds.add(case.cycle.key if case.cycle.key in fc._IDLE_CYCLES else "custom")
+        kinds.add(case.engine_out["method"])
+    assert {"custom", "combustion", "measured"} <= kinds and len(kinds & set(fc._IDLE_CYCLES)) >= 2
+
+
+def test_non_idle_seeds_do_not_change(texts):
+    """Drawing idle cases uses its own random stream: the plain seeds stay as they were (the
+    slow studies and the robustness tests name seeds of the plain stream)."""
+    assert all(min(load_cycle(tomllib.loads(texts[s])["cycle"]["iso8178"]).power_fractions()) > 0
+               for s in texts if "iso8178" in tomllib.loads(texts[s])["cycle"])
+
+
 def test_reproduction_case_loads(tmp_path):
     case = fc.load_case_text(fc.reproduction_case(), "repro", tmp_path)
     assert fc.check_case_inputs(case) == []

@@ -109,6 +109,44 @@ def test_warm_started_cycles_agree_with_cold_solves(seed):
                     seed, m.name, sp, cold.outlet.ppm(sp), m.outlet.ppm(sp))
 
 
+@settings(max_examples=5, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=hs.integers(0, 10 ** 6))
+def test_idle_cycles_solve_and_keep_their_invariants(seed):
+    """Random duty cycles with an idle mode (tests/fuzz_cases.py, idle=True): every mode
+    converges with its atoms balanced and no negative internal flow (check_result), the idle
+    mode has no g/kWh rows of its own (ISO 8178-4; or the row exempts it, NTC 2008 3.1.4) and
+    the JSON holds finite numbers only."""
+    import json
+    from aftertreat.output import to_json
+    case = fz.load_case_text(fz.random_cycle_case(seed, idle=True))
+    res = at.run_case(case)
+    assert fz.check_result(res, flow_tol=1e-12) == [], seed
+    assert res.converged, seed
+    idle = [m.name for m in res.modes if m.power_kW == 0.0]
+    assert idle
+    for c in res.limits:
+        if c.mode in idle and c.quantity.endswith("_g_kWh"):
+            assert c.limit is None and ("idle" in c.note or "exempt" in c.note), c
+    text = to_json(res.to_json())
+    assert "NaN" not in text and "Infinity" not in text
+    json.loads(text)
+
+
+def test_sizing_an_idle_cycle_case_answers(capsys):
+    """`aftertreat size` on a random idle-cycle case (fixed seed) answers: exit 0 (feasible or
+    not) or 1 (a flagged non-converged design), never a traceback or a bad-input exit."""
+    from aftertreat.cli import main
+    import tempfile
+    from pathlib import Path
+    with tempfile.TemporaryDirectory() as d:
+        f = Path(d) / "idle.toml"
+        f.write_text(fz.random_cycle_case(3, idle=True) + "\n[sizing]\ndesign_margin = 0.1\n")
+        assert main(["size", str(f), "--json"]) in (0, 1)
+    import json
+    obj = json.loads(capsys.readouterr().out)
+    assert obj["schema"] == "aftertreat.size/1" and isinstance(obj["feasible"], bool)
+
+
 def test_reproduction_case():
     """The case that exposed converged answers with negative flows inside a brick (a D2 genset,
     engine NH3 up to 5264 ppm at 210 C, a mixed Cu-CHA / Fe-zeolite train, tests/fuzz_cases.py):
