@@ -20,7 +20,8 @@ from .stream import Stream
 from .train import TrainSolution
 from .units import NORMAL_CONDITIONS, ZERO_C_K
 
-__all__ = ["ModeResult", "CycleResult", "run_case", "mode_inlets", "engine_out_stream"]
+__all__ = ["ModeResult", "CycleResult", "ModeInlet", "run_case", "mode_inlets",
+           "engine_out_stream"]
 
 
 @dataclass
@@ -246,9 +247,21 @@ def _mode_value(e: dict, key: str, i: int):
         return v
 
 
-def mode_inlets(case) -> list[tuple]:
-    """Per mode: (power_kW, engine-out Stream, intake-air CO2 [mol/s], train inlet Stream,
-    reagent [mol/s]). Independent of the train, so sizing computes it once."""
+@dataclass(frozen=True)
+class ModeInlet:
+    """What enters the train at one mode: the brake power, the engine-out exhaust, the CO2 the
+    intake air brought [mol/s] (not emitted by the engine), the train inlet (engine-out plus
+    the dosed reagent's gas products) and the dosed reagent [mol/s per species]."""
+    power_kW: float
+    engine_out: Stream
+    air_CO2_mol_s: float
+    inlet: Stream
+    reagent: np.ndarray
+
+
+def mode_inlets(case) -> list[ModeInlet]:
+    """:class:`ModeInlet` of every mode. Independent of the train, so sizing computes it
+    once."""
     from . import dosing
     out = []
     d = case.dosing
@@ -257,7 +270,7 @@ def mode_inlets(case) -> list[tuple]:
         _check_reference_o2(case, i, eo)
         inlet, reagent = dosing.dose(eo, d["method"], float(d["ANR"][i]),
                                      urea_mass_fraction=d["urea_mass_fraction"])
-        out.append((power, eo, air_co2, inlet, reagent))
+        out.append(ModeInlet(power, eo, air_co2, inlet, reagent))
     return out
 
 
@@ -282,8 +295,8 @@ def engine_out_cycle(case, inlets=None) -> dict:
     cycle_values` of every mode's engine-out stream, with the case's GWP set."""
     from . import limits
     inlets = mode_inlets(case) if inlets is None else inlets
-    heads = [mode_emissions(m.name, m.weight, x[0], bool(getattr(m, "cap_exempt", False)),
-                            x[1], x[2]) for m, x in zip(case.cycle.modes, inlets)]
+    heads = [mode_emissions(m.name, m.weight, x.power_kW, bool(getattr(m, "cap_exempt", False)),
+                            x.engine_out, x.air_CO2_mol_s) for m, x in zip(case.cycle.modes, inlets)]
     return limits.cycle_values(heads, gwp_set=case.gwp_set)
 
 
@@ -308,13 +321,15 @@ def run_case(case, *, progress=None, train=None, guesses=None, inlets=None,
     train = case.train if train is None else train
     inlets = mode_inlets(case) if inlets is None else inlets
     results: list[ModeResult] = []
-    labels = mode_labels(case, [x[0] for x in inlets])
+    labels = mode_labels(case, [x.power_kW for x in inlets])
     guess = None
     n = case.n_modes
     for i, mode in enumerate(case.cycle.modes):
         if progress:
             progress(i, n, mode.name)
-        power, eo, air_co2, inlet, reagent = inlets[i]
+        x = inlets[i]
+        power, eo, air_co2, inlet, reagent = (x.power_kW, x.engine_out, x.air_CO2_mol_s,
+                                              x.inlet, x.reagent)
         g = guesses[i] if guesses is not None else guess
         try:
             sol = train.solve(inlet, guess=g, settings=settings)

@@ -253,7 +253,7 @@ class _Designs:
         from .gas import GasProperties
         from .transport import pressure_drop
         b = self.case.train.bricks
-        gases = [(m[3], GasProperties.for_stream(m[3].F)) for m in self.inlets]
+        gases = [(m.inlet, GasProperties.for_stream(m.inlet.F)) for m in self.inlets]
         out = {}
         for i in idx:
             rule = rules[b[i].substrate.kind]
@@ -443,7 +443,7 @@ def _grow(f, x0: float, hi: float, slopes: dict | None = None, max_evals: int = 
 
 
 def _face_velocity_diameter(case, inlets, v: float) -> float:
-    q = max(inl[3].volume_flow() for inl in inlets)     # actual m3/s at the brick inlet
+    q = max(inl.inlet.volume_flow() for inl in inlets)     # actual m3/s at the brick inlet
     return math.sqrt(4.0 * q / (math.pi * v))
 
 
@@ -454,7 +454,7 @@ def ghsv_diameter(inlets, ghsv_per_h: float, length_to_diameter: float = 1.0) ->
     D = (4 V / (pi r))^(1/3). A design GHSV is the usual first estimate of SCR volume (common
     practice); the lengths are then sized by the kinetics at this diameter."""
     from . import train
-    stream = max((inl[3] for inl in inlets), key=lambda s: s.total)
+    stream = max((inl.inlet for inl in inlets), key=lambda s: s.total)
     V = train.ghsv_per_h(stream, 1.0) / ghsv_per_h        # GHSV x V is fixed by the flow
     return (4.0 * V / (math.pi * length_to_diameter)) ** (1.0 / 3.0)
 

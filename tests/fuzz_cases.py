@@ -680,7 +680,8 @@ def check_case_inputs(case) -> list[str]:
     lo = max(c.valid_T[0] for b in case.train.bricks for c in b.catalysts)
     hi = min(c.valid_T[1] for b in case.train.bricks for c in b.catalysts)
     V = case.train.volume
-    for i, (power, eo, _air, inlet, reagent) in enumerate(mode_inlets(case)):
+    for i, x in enumerate(mode_inlets(case)):
+        power, eo, inlet = x.power_kW, x.engine_out, x.inlet
         m = case.cycle.modes[i].name
         if not power >= 0:
             out.append(f"mode {m}: power {power} kW is negative")

@@ -6,7 +6,6 @@ from pathlib import Path
 import pytest
 
 from aftertreat.build import parse_build_rules
-from aftertreat.cli import main
 from aftertreat.cyclecase import load_run_case
 from aftertreat.errors import InputError
 from aftertreat.sizing import size_case

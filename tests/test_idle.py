@@ -94,11 +94,11 @@ def test_combustion_idle_mode_burns_its_share_of_the_rated_fuel(tmp_path):
     case = load_run_case(_case(tmp_path, CASE.format(extra="idle_fuel_pct = 7")))
     inl = mode_inlets(case)
     names = [m.name for m in case.cycle.modes]
-    idle = [i for i, m in enumerate(inl) if m[0] == 0.0]
-    top = int(np.argmax([m[0] for m in inl]))
+    idle = [i for i, m in enumerate(inl) if m.power_kW == 0.0]
+    top = int(np.argmax([m.power_kW for m in inl]))
     assert len(idle) == 1 and names[idle[0]]
-    big = inl[top][1].F > 0
-    ratio = inl[idle[0]][1].F[big] / inl[top][1].F[big]
+    big = inl[top].engine_out.F > 0
+    ratio = inl[idle[0]].engine_out.F[big] / inl[top].engine_out.F[big]
     np.testing.assert_allclose(ratio, 0.07, rtol=1e-9)
 
 

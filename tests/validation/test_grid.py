@@ -50,7 +50,7 @@ def test_demo_cases_grid_converged(case):
     """Every mode of the demo cases: outlet NO, NO2, NH3, N2O within 0.1 % (see REL)."""
     c = at.load_run_case(ROOT / "cases" / f"{case}.toml")
     for i, m in enumerate(mode_inlets(c)):
-        e, sp = grid_error(c.train, m[3])
+        e, sp = grid_error(c.train, m.inlet)
         assert e <= 1.0, f"mode {i}: {sp} off by {e * REL:.2e} (relative)"
 
 

@@ -287,7 +287,7 @@ def test_ghsv_diameter_rule(tmp_path):
     inlets = mode_inlets(case)
     D = ghsv_diameter(inlets, 15000.0, 1.5)
     V = math.pi * D ** 2 / 4 * (1.5 * D)
-    q_max = max((inl[3] for inl in inlets), key=lambda s: s.total)
+    q_max = max((inl.inlet for inl in inlets), key=lambda s: s.total)
     assert ghsv_per_h(q_max, V) == pytest.approx(15000.0, rel=1e-12)
     res = size_case(case, curves=False)
     assert res.train.bricks[0].diameter == pytest.approx(D, rel=1e-12)
