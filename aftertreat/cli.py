@@ -337,11 +337,22 @@ def _print_size(res, safety: str, report: str | None) -> None:
         L.add_row(r.row_name, r.mode or "cycle", _num(r.value), _num(r.limit), r.basis,
                   _num(x.margin_pct))
     con.print(L)
+    _print_notes(con, res.run.warnings)
     con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
               f"{res.seconds:.1f} s")
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
+
+
+def _print_notes(con, warnings) -> None:
+    """The run's warnings, each once (the same note at every mode is shown once)."""
+    seen = set()
+    for w in warnings:
+        text = w.split(": ", 1)[1] if w.startswith("mode '") else w
+        if text not in seen:
+            seen.add(text)
+            con.print(f"[yellow]note: {escape(text)}[/yellow]")
 
 
 def _n2o_made(result) -> str:
@@ -399,12 +410,7 @@ def _print_run(result, safety: str, report: str | None) -> None:
             con.print("* limit value recalled from memory, not read in the source: check it")
     verdict = "[green]PASSES[/]" if result.passed else "[red]DOES NOT PASS[/]"
     con.print(f"Overall: {verdict} every limit of the case (solved in {result.seconds:.1f} s)")
-    seen = set()
-    for w in result.warnings:
-        text = w.split(": ", 1)[1] if w.startswith("mode '") else w
-        if text not in seen:                      # the same note at every mode: show it once
-            seen.add(text)
-            con.print(f"[yellow]note: {escape(text if text != w else w)}[/yellow]")
+    _print_notes(con, result.warnings)
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")

@@ -830,7 +830,10 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                 binding.append(f"shortest buildable {name} bricks (sizing.build)")
     cont_res = designs(L_scr, L_asc)
     continuous = designs.train(L_scr, L_asc)
-    train, res = _round_up(designs, continuous, cont_res, rules, nox, m, has_asc)
+    train, res = _round_up(designs, continuous, cont_res, rules, nox, m, has_asc,
+                           {"scr": sz["scr_length_max_mm"] / 1e3,
+                            "asc": sz["asc_length_max_mm"] / 1e3,
+                            "total": max_total / 1e3 if max_total else math.inf})
     objective_note = "smallest buildable volume (sizing.objective)"
     if sz.get("objective") == "CO2e" and feasible:
         if progress:
@@ -895,21 +898,39 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                         objective=objective_note)
 
 
-def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc):
+def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc, caps=None):
     """The continuous optimum ``continuous`` (result ``res``) rounded up to buildable lengths,
     then grown one step at a time (the shortest brick of the section whose limits fail) until
     it meets its limits with the margin, or no brick can grow. No brick goes past its longest
-    length (:meth:`_Designs.brick_limits`: a pressure-drop bound may cut the buildable range).
-    Returns (train, result)."""
+    length (:meth:`_Designs.brick_limits`: a pressure-drop bound may cut the buildable range),
+    and no step takes a section past its length bound or the train past the envelope
+    (``caps``: ``scr``, ``asc`` and ``total`` lengths [m]); where rounding up would, the
+    longest bricks of the section are rounded down instead. Returns (train, result)."""
     b = list(continuous.bricks)
     sized = designs.scr + designs.asc
+    caps = caps or {}
+    section = {i: ("scr", designs.scr) for i in designs.scr}
+    section.update({i: ("asc", designs.asc) for i in designs.asc})
 
     def top(i):                                  # the longest buildable length allowed
         return rules[b[i].substrate.kind].round_down(designs.limits[i][1])
 
+    def fits(i, L) -> bool:                      # brick i at L keeps its section and the train
+        name, idx = section[i]
+        sec = sum(L if k == i else b[k].length for k in idx)
+        tot = sum(L if k == i else x.length for k, x in enumerate(b))
+        return sec <= caps.get(name, math.inf) * (1 + 1e-9) and \
+            tot <= caps.get("total", math.inf) * (1 + 1e-9)
+
     for i in sized:
         rule = rules[b[i].substrate.kind]
         b[i] = dataclasses.replace(b[i], length=min(rule.round_up(b[i].length), top(i)))
+    for i in sorted(sized, key=lambda k: -b[k].length):      # back within the bounds
+        if not fits(i, b[i].length):
+            rule = rules[b[i].substrate.kind]
+            down = rule.round_down(b[i].length - rule.step_mm / 1e3 * (1 - 1e-6))
+            if down >= designs.limits[i][0] - 1e-12:
+                b[i] = dataclasses.replace(b[i], length=down)
     if all(x.length == y.length for x, y in zip(b, continuous.bricks)):
         return continuous, res
     like = res
@@ -923,11 +944,12 @@ def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc):
             break
         grown = False
         for idx in failing:
-            can = [i for i in idx if b[i].length < top(i) - 1e-9]
+            up = {i: min(rules[b[i].substrate.kind].next_up(b[i].length), top(i))
+                  for i in idx}
+            can = [i for i in idx if up[i] > b[i].length + 1e-9 and fits(i, up[i])]
             if can:
                 i = min(can, key=lambda k: b[k].length)
-                b[i] = dataclasses.replace(
-                    b[i], length=min(rules[b[i].substrate.kind].next_up(b[i].length), top(i)))
+                b[i] = dataclasses.replace(b[i], length=up[i])
                 grown = True
         if not grown:
             break

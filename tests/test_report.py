@@ -184,3 +184,28 @@ def test_limit_checks_are_typed_and_name_their_basis():
     assert worst.ratio == max(c.ratio for c in nh3)
     d = res.to_json()["limits"][0]
     assert {"name", "value", "limit", "unit", "o2_ref_pct", "pass", "mode"} <= set(d)
+
+
+@pytest.mark.parametrize("name", ["marine_e2_10mw.toml", "turbine_50mw_hrsg.toml"])
+def test_new_user_cases_size_to_buildable_trains_that_rerun(name, tmp_path, capsys):
+    """The two kinds of case a new user tried (a 10 MW four-stroke with ~3000 ppm engine NH3
+    on E2 against Tier III; a 50 MW gas turbine held to 2 ppmvd NOx and 5 ppmvd slip at 15 %
+    O2): `size --report` gives a feasible train of whole build steps, and `run` on the report's
+    case_as_run.toml passes with the sizing's numbers."""
+    from aftertreat.build import default_rules
+    rep = tmp_path / "rep"
+    assert main(["size", str(ROOT / "cases" / name), "--report", str(rep), "--json"]) == 0
+    sized = _json(capsys)
+    assert sized["feasible"], sized["problems"]
+    rules = default_rules()
+    from aftertreat.cyclecase import load_run_case
+    case = load_run_case(rep / "case_as_run.toml")
+    for b in case.train.bricks:
+        step = rules[b.substrate.kind].step_mm
+        k = b.length * 1e3 / step
+        assert abs(k - round(k)) < 1e-6 and b.length >= rules[b.substrate.kind].shortest_m - 1e-9
+    assert main(["run", str(rep / "case_as_run.toml"), "--json"]) == 0
+    again = _json(capsys)
+    assert again["pass"] is True
+    for k in ("NOx_g_kWh", "N2O_g_kWh", "NH3_slip_ppmvd_max"):
+        assert again["cycle"][k] == pytest.approx(sized["run"]["cycle"][k], rel=1e-6)
