@@ -33,6 +33,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from . import schema
 from .brick import WASHCOAT_MODELS, Brick
 from .catalyst import LayeredCatalyst, load_catalyst
 from .errors import InputError, did_you_mean
@@ -44,13 +45,10 @@ from .units import P_ATM_PA, to_si, ZERO_C_K
 
 __all__ = ["Case", "load_case", "parse_case", "apply_set", "read_toml"]
 
-_TOP = {"title", "note", "exhaust", "brick"}
-_EXHAUST = {"mass_flow", "mass_flow_kg_s", "molar_flow", "molar_flow_mol_s", "T", "T_C", "p",
-            "p_kPa", "basis"} | {f"{s}_ppm" for s in SPECIES} | {f"{s}_pct" for s in SPECIES}
-_BRICK = {"name", "catalyst", "substrate", "cpsi", "wall", "wall_mm", "wall_mil", "washcoat_um",
-          "gap", "gap_mm", "plate", "plate_mm", "length", "length_mm", "diameter", "diameter_mm",
-          "activity", "cells", "grid", "nodes_per_layer", "washcoat_model", "sherwood",
-          "heat_loss_W_m2K", "heat_capacity_kJ_m3K"}
+# the keys each table accepts: declared once, with their meaning, in aftertreat.schema
+_TOP = set(schema.keys("", case=schema.POINT))
+_EXHAUST = set(schema.keys("exhaust"))
+_BRICK = set(schema.keys("brick[]"))
 
 
 @dataclass

@@ -28,6 +28,7 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 from importlib import resources
 
+from . import schema
 from .errors import InputError, did_you_mean
 
 __all__ = ["Mode", "DutyCycle", "load_cycle", "available_cycles", "custom_cycle",
@@ -37,7 +38,7 @@ __all__ = ["Mode", "DutyCycle", "load_cycle", "available_cycles", "custom_cycle"
 #: exactly in decimal; 1e-6 absorbs binary rounding and user-typed 6-decimal weights).
 WEIGHT_SUM_TOL = 1e-6
 _DATA_FILE = "cycles.toml"
-_MODE_KEYS = ("name", "weight", "power_pct", "torque_pct", "speed_pct", "speed", "cap_exempt")
+_MODE_KEYS = schema.keys("cycle.mode[]")      # in the order error messages list them
 
 
 @dataclass

@@ -66,6 +66,7 @@ from pathlib import Path
 
 import numpy as np
 
+from . import schema
 from .build import parse_build_rules
 from .case import _unknown, apply_set, parse_brick, read_toml
 from .transient_run import parse_transient
@@ -76,32 +77,28 @@ from .units import P_ATM_PA, ZERO_C_K
 __all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
 
 APPLICATIONS = ("marine propulsion", "auxiliary genset", "stationary engine", "gas turbine")
-_TOP = {"title", "note", "engine", "fuel", "cycle", "engine_out", "dosing", "brick", "limits",
-        "sizing", "transient"}
-_ENGINE = {"application", "rated_power_kW", "rated_speed_rpm", "name"}
-_FUEL = {"NH3", "H2", "diesel", "natural_gas", "cracked_H2"}
-_CYCLE = {"iso8178", "mode"}
-_MINOR = ("NOx_ppm", "NO2_fraction", "NH3_ppm", "N2O_ppm", "H2_ppm")
-_OUT_COMMON = {"method", "T_C", "p_kPa"} | set(_MINOR)
-_OUT_COMBUSTION = _OUT_COMMON | {"brake_efficiency", "lambda", "intake_humidity_g_kg",
-                                  "idle_fuel_pct"}
+# the keys each table accepts: declared once, with their meaning, in aftertreat.schema
+_TOP = set(schema.keys("", case=schema.CYCLE))
+_ENGINE = set(schema.keys("engine"))
+_FUEL = set(schema.keys("fuel"))
+_CYCLE = set(schema.keys("cycle"))
+_OUT_COMMON = set(schema.keys("engine_out", key_set=""))
+_OUT_COMBUSTION = set(schema.keys("engine_out", key_set="combustion"))
 #: Fuel energy flow of an idle (zero-power) mode, as a percentage of the fuel energy flow at
 #: the highest-power mode, when the case does not give ``engine_out.idle_fuel_pct``: low idle
 #: of a diesel-cycle engine burns a few percent of its rated fuel flow (from memory; pass the
 #: engine's own value).
 IDLE_FUEL_PCT_DEFAULT = 5.0
-_OUT_MEASURED = _OUT_COMMON | {"mass_flow_kg_h", "O2_pct", "H2O_pct", "basis"}
-_DOSING = {"method", "ANR", "urea_mass_fraction"}
-_LIMITS = {"sets", "gwp", "custom", "co2e_rise_warn_pct"}
+_OUT_MEASURED = set(schema.keys("engine_out", key_set="measured"))
+_DOSING = set(schema.keys("dosing"))
+_LIMITS = set(schema.keys("limits"))
 #: A run warns when the train raises the cycle's greenhouse-gas emission (CO2 + N2O as CO2e)
 #: by more than this percentage of the engine-out value ([limits] co2e_rise_warn_pct): N2O
 #: made by SCR and slip catalysts is the real trade-off of an ammonia engine (our default).
 CO2E_RISE_WARN_PCT = 10.0
-_SIZING = {"design_margin", "dp_max_kPa", "max_length_mm", "max_diameter_mm",
-           "face_velocity_m_s", "cost_per_L", "scr_length_max_mm", "asc_length_max_mm",
-           "choose_ANR", "ANR_excess", "diameter_from_dp", "ghsv_per_h", "length_to_diameter",
-           "build", "N2O_max_g_kWh", "CO2e_max_g_kWh", "CO2e_rise_max_pct", "objective",
-           "volume_allowance_pct"}
+_SIZING = set(schema.keys("sizing"))
+#: every numeric [sizing] key -> its closed range (lo, hi), from the schema
+_SIZING_BOUNDS = schema.bounds("sizing")
 #: what ``aftertreat size`` minimises ([sizing] objective)
 SIZING_OBJECTIVES = ("volume", "CO2e")
 
@@ -334,13 +331,8 @@ def _sizing(data, file) -> dict:
         raise InputError("expected a [sizing] table", key="sizing", file=file)
     _unknown(s, _SIZING, file, "sizing.")
     out = {"design_margin": 0.0, "scr_length_max_mm": 4000.0, "asc_length_max_mm": 1000.0}
-    bounds = {"design_margin": (0.0, 0.5), "dp_max_kPa": (0.01, 100.0),
-              "max_length_mm": (10.0, 1e5), "max_diameter_mm": (10.0, 1e5),
-              "face_velocity_m_s": (0.1, 100.0), "scr_length_max_mm": (10.0, 1e5),
-              "asc_length_max_mm": (10.0, 1e5), "ghsv_per_h": (100.0, 1e6),
-              "length_to_diameter": (0.05, 20.0), "N2O_max_g_kWh": (0.0, 100.0),
-              "CO2e_max_g_kWh": (0.0, 1e5), "CO2e_rise_max_pct": (0.0, 1000.0),
-              "volume_allowance_pct": (0.0, 100.0)}
+    # ANR_excess is checked below, after the objective
+    bounds = {k: b for k, b in _SIZING_BOUNDS.items() if k != "ANR_excess"}
     for k, (lo, hi) in bounds.items():
         if k in s:
             v = s[k]
@@ -373,8 +365,9 @@ def _sizing(data, file) -> dict:
                          file=file)
     if "ANR_excess" in s:
         v = s["ANR_excess"]
-        if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0 <= v <= 0.5:
-            raise InputError("expected a number within [0, 0.5]", key="sizing.ANR_excess",
+        lo, hi = _SIZING_BOUNDS["ANR_excess"]
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not lo <= v <= hi:
+            raise InputError(f"expected a number within [{lo}, {hi}]", key="sizing.ANR_excess",
                              value=v, file=file)
         out["ANR_excess"] = float(v)
     if "cost_per_L" in s:

@@ -34,6 +34,7 @@ from decimal import ROUND_HALF_UP, Decimal
 from functools import lru_cache
 from importlib import resources
 
+from . import schema
 from .emissions import co2e_g, o2_reference, ppm_to_mg_Nm3, weighted_specific_emission, wet_ppm
 from .errors import InputError, did_you_mean
 from .species import NOX
@@ -53,8 +54,7 @@ QUANTITIES: dict[str, tuple[str, str, bool]] = {
     **{f"{s}_mg_Nm3": ("mg/Nm3", "mode", True) for s in ("NOx", "NH3", "N2O")},
     "NH3_ppm_wet_max": ("ppm", "mode", False),
 }
-_ROW_KEYS = ("name", "quantity", "value", "unit", "scope", "o2_ref_pct", "source", "clause",
-             "confidence", "imo_tier", "factor", "apply_exemptions", "min_load_pct")
+_ROW_KEYS = schema.keys("limits.custom[]")    # in the order error messages list them
 _DATA_FILE = "limits.toml"
 
 

@@ -36,6 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from . import dosing as dosing_mod
+from . import schema
 from .control import AnrMap, StorageController, parse_map
 from .emissions import dry_ppm
 from .errors import InputError, did_you_mean
@@ -50,9 +51,9 @@ __all__ = ["parse_transient", "timeline", "run_transient", "TransientRun", "Time
 #: NH3 molar mass [g/mol] (from the species table)
 M_NH3_G = float(MOLAR_MASS[INDEX["NH3"]]) * 1e3
 
-_KEYS = {"trace", "basis", "columns", "zero_columns", "hold_s", "ramp_s", "dt_s", "start",
-         "T_start_C", "conduction", "dosing"}
-_DOSING_KEYS = {"control", "ANR_map", "target_fraction", "response_s", "ANR_max"}
+# the keys of [transient] and [transient.dosing]: declared once, in aftertreat.schema
+_KEYS = set(schema.keys("transient"))
+_DOSING_KEYS = set(schema.keys("transient.dosing"))
 CONTROLS = ("fixed", "map", "storage")
 #: Default feed-forward map (common practice: no dosing below ~180 C, where ammonium salts
 #: form; stoichiometric above ~260 C) and default storage targets (from memory: fill falling
