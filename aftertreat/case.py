@@ -36,6 +36,7 @@ from pathlib import Path
 from . import schema
 from .brick import WASHCOAT_MODELS, Brick
 from .catalyst import LayeredCatalyst, load_catalyst
+from .checks import number
 from .errors import InputError, did_you_mean
 from .geometry import Substrate
 from .species import SPECIES
@@ -146,14 +147,16 @@ def parse_exhaust(ex: dict, file: str) -> Stream:
                     raise InputError(f"give {s} once (as _ppm or _pct)", key=pre + k, file=file)
                 y[s] = v * scale
     if "N2" in y:
-        raise InputError("N2 is the balance; do not give it", key=pre + "N2", file=file)
+        given = next(f"N2_{suf}" for suf in ("ppm", "pct") if f"N2_{suf}" in ex)
+        raise InputError("N2 is the balance; do not give it", key=pre + given,
+                         value=ex[given], file=file)
     mass = _quantity(ex, "mass_flow", "kg/s", ("kg_s", "kg/s"), file, pre, required=False)
     molar = _quantity(ex, "molar_flow", "mol/s", ("mol_s", "mol/s"), file, pre, required=False)
     if (mass is None) == (molar is None):
         raise InputError("give exactly one of mass_flow and molar_flow", key=pre + "mass_flow",
                          file=file)
-    _positive(mass if mass is not None else molar, pre + ("mass_flow" if mass else "molar_flow"),
-              file, "a flow > 0")
+    _positive(mass if mass is not None else molar,
+              pre + ("mass_flow" if mass is not None else "molar_flow"), file, "a flow > 0")
     nox = y.get("NO", 0.0) + y.get("NO2", 0.0)
     from .combustion import exhaust_from_measurements
     try:
@@ -192,6 +195,8 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
         if kind == "plate":
             gap = _quantity(b, "gap", "m", ("mm", "mm"), file, pre)
             plate = _quantity(b, "plate", "m", ("mm", "mm"), file, pre)
+            _positive(gap, pre + "gap", file, "a gap > 0")
+            _positive(plate, pre + "plate", file, "a plate thickness > 0")
             sub = Substrate(kind="plate", wall=plate, gap=gap)
         else:
             cpsi = b.get("cpsi")
@@ -210,6 +215,8 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
                     wc = [t * 1e6 for _, t in layers]
                 if not isinstance(wc, list):
                     wc = [wc]
+                wc = [number(t, pre + "washcoat_um", file, lo=0.0, lo_open=True,
+                             what="a washcoat thickness in um") for t in wc]
                 if len(wc) != len(layers):
                     raise InputError(f"expected {len(layers)} washcoat thickness(es), one per "
                                      "catalyst layer", key=pre + "washcoat_um", value=wc,
@@ -245,9 +252,9 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
             kw["grid"] = b["grid"]
         if "sherwood" in b:
             from .transport import sherwood_methods
-            if b["sherwood"] not in sherwood_methods():
+            if not isinstance(b["sherwood"], str) or b["sherwood"] not in sherwood_methods():
                 raise InputError("expected one of " + ", ".join(sherwood_methods())
-                                 + did_you_mean(b["sherwood"], sherwood_methods()),
+                                 + did_you_mean(str(b["sherwood"]), sherwood_methods()),
                                  key=pre + "sherwood", value=b["sherwood"], file=file)
             kw["sherwood"] = b["sherwood"]
         act = b.get("activity", 1.0)
@@ -256,7 +263,8 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
                              file=file)
         return Brick(name=name, substrate=sub, catalysts=tuple(c for c, _ in layers),
                      length=length, diameter=diameter, activity=float(act), washcoat=wm,
-                     heat_loss_W_m2K=float(b.get("heat_loss_W_m2K", 0.0)),
+                     heat_loss_W_m2K=number(b.get("heat_loss_W_m2K", 0.0),
+                                            pre + "heat_loss_W_m2K", file, lo=0.0),
                      heat_capacity_kJ_m3K=b.get("heat_capacity_kJ_m3K"), **kw)
     except InputError as exc:
         if exc.file:

@@ -29,6 +29,7 @@ from functools import lru_cache
 from importlib import resources
 
 from . import schema
+from .checks import flag
 from .errors import InputError, did_you_mean
 
 __all__ = ["Mode", "DutyCycle", "load_cycle", "available_cycles", "custom_cycle",
@@ -140,9 +141,9 @@ def _parse_modes(rows, speeds: dict[str, float], file, prefix: str) -> list[Mode
         if "speed_pct" in row:
             speed = _number(row["speed_pct"], f"{where}.speed_pct", file, lo=0.0)
         elif label is not None:
-            if label not in speeds:
+            if not isinstance(label, str) or label not in speeds:
                 raise InputError(f"unknown speed point; valid: {', '.join(speeds)}"
-                                 + did_you_mean(label, speeds), key=f"{where}.speed",
+                                 + did_you_mean(str(label), speeds), key=f"{where}.speed",
                                  value=label, file=file)
             speed = speeds[label]
         else:
@@ -150,7 +151,8 @@ def _parse_modes(rows, speeds: dict[str, float], file, prefix: str) -> list[Mode
         modes.append(Mode(name=str(row.get("name", i + 1)), weight=w,
                           power_pct=load if has_p else None, speed_pct=speed,
                           torque_pct=None if has_p else load,
-                          cap_exempt=bool(row.get("cap_exempt", False)), speed_label=label))
+                          cap_exempt=flag(row.get("cap_exempt", False), f"{where}.cap_exempt",
+                                          file), speed_label=label))
     seen: dict[str, int] = {}
     for i, m in enumerate(modes):
         if m.name in seen:

@@ -70,6 +70,7 @@ from . import schema
 from .build import parse_build_rules
 from .case import _unknown, apply_set, parse_brick, read_toml
 from .transient_run import parse_transient
+from .checks import choice, flag, number
 from .errors import InputError, did_you_mean
 from .train import Train
 from .units import P_ATM_PA, ZERO_C_K
@@ -195,7 +196,7 @@ def _fuel(data, file) -> dict:
         raise InputError("expected energy shares that sum to 1", key="fuel",
                          value=round(sum(shares.values()), 6), file=file)
     return {"shares": {k: float(v) for k, v in shares.items() if v > 0},
-            "cracked_H2": bool(f.get("cracked_H2", False))}
+            "cracked_H2": flag(f.get("cracked_H2", False), "fuel.cracked_H2", file)}
 
 
 def _cycle(data, file):
@@ -306,16 +307,16 @@ def _limits(data, file):
         raise InputError("expected a list of limit-set keys", key="limits.sets", value=names,
                          file=file)
     for k in names:
+        if not isinstance(k, str):
+            raise InputError("expected the key of a limit set (text)", key="limits.sets",
+                             value=k, file=file)
         try:
             sets.append(lm.load_limit_set(k))
         except InputError as exc:
             raise InputError(exc.expected, key="limits.sets", value=k, file=file) from None
     if "custom" in L:
         sets.append(lm.custom_limits(L["custom"], file=file))
-    gwp = L.get("gwp", "AR6")
-    if gwp not in GWP100:
-        raise InputError("expected one of " + ", ".join(GWP100) + did_you_mean(gwp, GWP100),
-                         key="limits.gwp", value=gwp, file=file)
+    gwp = choice(L.get("gwp", "AR6"), GWP100, "limits.gwp", file)
     warn = L.get("co2e_rise_warn_pct", CO2E_RISE_WARN_PCT)
     if not isinstance(warn, (int, float)) or isinstance(warn, bool) or not 0 <= warn <= 1000:
         raise InputError("expected a percentage within [0, 1000]",
@@ -347,12 +348,9 @@ def _sizing(data, file) -> dict:
         raise InputError("length_to_diameter belongs to the GHSV diameter rule: give ghsv_per_h "
                          "too", key="sizing.length_to_diameter", value=out["length_to_diameter"],
                          file=file)
-    for flag in ("choose_ANR", "diameter_from_dp"):
-        if flag in s:
-            if not isinstance(s[flag], bool):
-                raise InputError("expected true or false", key=f"sizing.{flag}", value=s[flag],
-                                 file=file)
-            out[flag] = s[flag]
+    for name in ("choose_ANR", "diameter_from_dp"):
+        if name in s:
+            out[name] = flag(s[name], f"sizing.{name}", file)
     obj = s.get("objective", "volume")
     if obj not in SIZING_OBJECTIVES:
         raise InputError("expected one of " + ", ".join(SIZING_OBJECTIVES)
@@ -372,10 +370,17 @@ def _sizing(data, file) -> dict:
         out["ANR_excess"] = float(v)
     if "cost_per_L" in s:
         c = s["cost_per_L"]
-        if not isinstance(c, dict) or not all(isinstance(v, (int, float)) and v >= 0
-                                              for v in c.values()):
+        if not isinstance(c, dict):
             raise InputError("expected a table of catalyst key = cost per litre >= 0",
                              key="sizing.cost_per_L", value=c, file=file)
+        used = {str(b.get("catalyst")) for b in data.get("brick", []) if isinstance(b, dict)}
+        for k, v in c.items():
+            number(v, f"sizing.cost_per_L.{k}", file, lo=0.0, what="a cost per litre")
+            if used and k not in used:
+                raise InputError("no brick of the case uses this catalyst; costs are keyed by "
+                                 "the catalysts of the bricks: " + ", ".join(sorted(used))
+                                 + did_you_mean(k, used), key=f"sizing.cost_per_L.{k}",
+                                 file=file)
         out["cost_per_L"] = {k: float(v) for k, v in c.items()}
     out["build"] = parse_build_rules(s.get("build"), file)
     return out

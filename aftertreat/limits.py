@@ -36,6 +36,7 @@ from importlib import resources
 
 from . import schema
 from .emissions import co2e_g, o2_reference, ppm_to_mg_Nm3, weighted_specific_emission, wet_ppm
+from .checks import flag, number
 from .errors import InputError, did_you_mean
 from .species import NOX
 from .units import P_NORMAL_PA, T_NORMAL_K
@@ -219,8 +220,14 @@ def imo_nox_limit(tier, rated_speed_rpm: float) -> float:
     return float(d["coefficient_g_kWh"] * n ** d["exponent"])
 
 
-def _parse_row(r, i: int, file, defaults: dict, o2_air: float) -> LimitRow:
-    where = f"row[{i}]"
+def _min_load(v, key: str, file) -> float | None:
+    return None if v is None else number(v, key, file, lo=0.0, hi=100.0,
+                                         what="a load in % of rated power")
+
+
+def _parse_row(r, i: int, file, defaults: dict, o2_air: float,
+               prefix: str = "row") -> LimitRow:
+    where = f"{prefix}[{i}]"
     if not isinstance(r, dict):
         raise InputError("expected a table", key=where, value=r, file=file)
     for k in r:
@@ -228,9 +235,9 @@ def _parse_row(r, i: int, file, defaults: dict, o2_air: float) -> LimitRow:
             raise InputError(f"unknown limit key; valid: {', '.join(_ROW_KEYS)}"
                              + did_you_mean(k, _ROW_KEYS), key=f"{where}.{k}", file=file)
     q = r.get("quantity")
-    if q not in QUANTITIES:
+    if not isinstance(q, str) or q not in QUANTITIES:
         raise InputError(f"unknown quantity; valid: {', '.join(QUANTITIES)}"
-                         + did_you_mean(q, QUANTITIES), key=f"{where}.quantity", value=q,
+                         + did_you_mean(str(q), QUANTITIES), key=f"{where}.quantity", value=q,
                          file=file)
     unit, scope, o2_based = QUANTITIES[q]
     if r.get("unit", unit) != unit:
@@ -248,15 +255,19 @@ def _parse_row(r, i: int, file, defaults: dict, o2_air: float) -> LimitRow:
         raise InputError("expected a limit value >= 0", key=f"{where}.value", value=value,
                          file=file)
     o2_ref = r.get("o2_ref_pct")
-    if o2_based and (not isinstance(o2_ref, (int, float)) or not 0 <= o2_ref < o2_air):
+    if o2_based and (not isinstance(o2_ref, (int, float)) or isinstance(o2_ref, bool)
+                     or not 0 <= o2_ref < o2_air):
         raise InputError(f"expected a reference O2 in [0, {o2_air}) % for {q}",
                          key=f"{where}.o2_ref_pct", value=o2_ref, file=file)
     return LimitRow(name=str(r.get("name", q)), quantity=q, unit=unit, scope=scope,
                     value=None if value is None else float(value),
                     o2_ref_pct=None if o2_ref is None else float(o2_ref), imo_tier=tier,
-                    factor=float(r.get("factor", 1.0)),
-                    apply_exemptions=bool(r.get("apply_exemptions", False)),
-                    min_load_pct=r.get("min_load_pct", defaults.get("min_load_pct")),
+                    factor=number(r.get("factor", 1.0), f"{where}.factor", file, lo=0.0,
+                                  lo_open=True),
+                    apply_exemptions=flag(r.get("apply_exemptions", False),
+                                          f"{where}.apply_exemptions", file),
+                    min_load_pct=_min_load(r.get("min_load_pct", defaults.get("min_load_pct")),
+                                           f"{where}.min_load_pct", file),
                     source=str(r.get("source", defaults.get("source", ""))),
                     clause=str(r.get("clause", defaults.get("clause", ""))),
                     confidence=str(r.get("confidence", defaults.get("confidence", ""))))
@@ -294,9 +305,10 @@ def custom_limits(rows: list[dict], file: str | None = None, *, name: str = "cus
     parsed = []
     for i, r in enumerate(rows):
         if isinstance(r, dict) and "source" not in r:
-            raise InputError("expected a source for every limit", key=f"row[{i}].source",
-                             file=file)
-        parsed.append(_parse_row(r, i, file, {"confidence": "user input"}, o2_air_pct))
+            raise InputError("expected a source for every limit",
+                             key=f"limits.custom[{i}].source", file=file)
+        parsed.append(_parse_row(r, i, file, {"confidence": "user input"}, o2_air_pct,
+                                 prefix="limits.custom"))
     return LimitSet(key="custom", name=name, source="user input", clause="",
                     confidence="user input", o2_air_pct=float(o2_air_pct),
                     T_normal_K=float(T_normal_K), p_normal_Pa=float(p_normal_Pa), rows=parsed,

@@ -232,8 +232,7 @@ KEYS: tuple[Key, ...] = tuple([
     *_fuel_keys(),
     Key("fuel", "cracked_H2", BOOL, "The hydrogen is cracked on board from ammonia, so the "
         "nitrogen of that ammonia joins the exhaust.",
-        allowed='any value, read as true or false (not checked: a text such as "no" counts '
-                'as true)', default_value=False, cases=(CYCLE,)),
+        allowed="true or false", default_value=False, cases=(CYCLE,)),
     # ---- [cycle] --------------------------------------------------------------------------
     Key("cycle", "iso8178", TEXT, "Key of a shipped test cycle.",
         allowed="one of {cycles} (upper or lower case); give `iso8178` or `mode`, not both",
@@ -264,8 +263,7 @@ KEYS: tuple[Key, ...] = tuple([
         allowed="one of {speed_points}", default="none", cases=(CYCLE,)),
     Key("cycle.mode[]", "cap_exempt", BOOL, "The mode is exempt from per-mode caps of limit "
         "rows that apply exemptions.",
-        allowed="any value, read as true or false (not checked)", default_value=False,
-        cases=(CYCLE,)),
+        allowed="true or false", default_value=False, cases=(CYCLE,)),
     # ---- [engine_out]: common keys --------------------------------------------------------
     Key("engine_out", "method", TEXT, "How the engine-out exhaust is given: worked out from "
         "fuel, efficiency and lambda by an atom balance, or as measured flows and "
@@ -453,13 +451,12 @@ KEYS: tuple[Key, ...] = tuple([
         allowed="one of {imo_tiers} (also 1, 2, 3 or \"Tier II\"); checked when the limits are "
                 "evaluated, with `engine.rated_speed_rpm`", default="none", cases=(CYCLE,)),
     Key("limits.custom[]", "factor", NUMBER, "Multiplier on the limit (e.g. 1.5 for a per-mode "
-        "cap of 1.5 x the weighted limit).", unit="-", allowed="a number (not checked)",
+        "cap of 1.5 x the weighted limit).", unit="-", range=Range(0.0, lo_open=True),
         default_value=1.0, cases=(CYCLE,)),
     Key("limits.custom[]", "apply_exemptions", BOOL, "Skip modes marked `cap_exempt` in a "
-        "per-mode check.", allowed="any value, read as true or false (not checked)",
-        default_value=False, cases=(CYCLE,)),
+        "per-mode check.", allowed="true or false", default_value=False, cases=(CYCLE,)),
     Key("limits.custom[]", "min_load_pct", NUMBER, "Per-mode checks skip modes below this "
-        "power.", unit="% of rated power", allowed="a number (not checked when read)",
+        "power.", unit="% of rated power", range=Range(0.0, 100.0),
         default="none (every mode is checked)", cases=(CYCLE,)),
     # ---- [sizing] -------------------------------------------------------------------------
     Key("sizing", "design_margin", NUMBER, "Every limit is tightened by this fraction for the "
@@ -516,7 +513,8 @@ KEYS: tuple[Key, ...] = tuple([
         default="0.05 (set in aftertreat/sizing.py)", cases=(CYCLE,)),
     Key("sizing", "cost_per_L", TABLE, "Catalyst cost per litre, for the cost of the sized "
         "train.", unit="your currency per litre",
-        allowed="catalyst key = number >= 0 (the keys are not checked)", default="none",
+        allowed="catalyst = number >= 0, keyed by the `catalyst` a [[brick]] of the case "
+                "names", default="none",
         cases=(CYCLE,)),
     Key("sizing", "build", TABLE, "Buildable brick lengths per substrate kind (see "
         "[sizing.build.<kind>]).", allowed="one table per kind, among {kinds}",

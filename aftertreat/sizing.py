@@ -882,8 +882,10 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     curves = _curves(coarse, m, L_scr, L_asc)
     cost = None
     if sz.get("cost_per_L"):
-        cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(b.catalysts[0].key, 0.0)
-                   for b in train.bricks)
+        # keyed by the catalyst each [[brick]] names (a layered file's own key, not a layer's)
+        keys = [str(row.get("catalyst")) for row in case.data["brick"]]
+        cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(k, 0.0)
+                   for b, k in zip(train.bricks, keys))
     used = sorted({b.substrate.kind for i, b in enumerate(case.train.bricks)
                    if i in designs.scr or i in designs.asc})
     return SizingResult(case=case, feasible=feasible and res.converged, train=train, run=res,

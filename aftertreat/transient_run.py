@@ -62,12 +62,12 @@ DEFAULT_ANR_MAP = {"T_C": [180.0, 220.0, 260.0], "ANR": [0.0, 0.8, 1.0]}
 DEFAULT_TARGET = {"T_C": [200.0, 300.0, 400.0, 450.0], "fraction": [0.5, 0.3, 0.1, 0.02]}
 
 
-def _number(t, key, file, lo, hi, default=None):
+def _number(t, key, file, lo, hi, default=None, table="transient"):
     v = t.get(key, default)
     if v is None:
         return None
     if not isinstance(v, (int, float)) or isinstance(v, bool) or not lo <= v <= hi:
-        raise InputError(f"expected a number within [{lo}, {hi}]", key=f"transient.{key}",
+        raise InputError(f"expected a number within [{lo}, {hi}]", key=f"{table}.{key}",
                          value=v, file=file)
     return float(v)
 
@@ -148,12 +148,9 @@ def parse_transient(data: dict, file: str, *, has_cycle: bool, dosing_method: st
                                "ANR", file, 0.0, 3.0)
     out["target"] = parse_map(d.get("target_fraction", DEFAULT_TARGET),
                               "transient.dosing.target_fraction", "fraction", file, 0.0, 1.0)
-    out["response_s"] = _number(d, "response_s", file, 1.0, 1e4, 30.0) if "response_s" in d \
+    out["response_s"] = _number(d, "response_s", file, 1.0, 1e4, 30.0, table="transient.dosing") if "response_s" in d \
         else 30.0
-    out["ANR_max"] = float(d.get("ANR_max", 1.5))
-    if not 0.0 <= out["ANR_max"] <= 3.0:
-        raise InputError("expected a number within [0, 3]", key="transient.dosing.ANR_max",
-                         value=d.get("ANR_max"), file=file)
+    out["ANR_max"] = _number(d, "ANR_max", file, 0.0, 3.0, 1.5, table="transient.dosing")
     return out
 
 

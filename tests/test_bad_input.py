@@ -308,3 +308,36 @@ def test_dry_o2_between_reference_air_and_air_refused_for_o2_corrected_limits(tm
     rc, err = _cli(["run", str(f)], capsys)
     assert rc == 2 and len(err) == 1, err
     assert "gt.toml" in err[0] and "mode '3'" in err[0] and "limit set" in err[0], err
+
+
+_HARBOUR = _DEMO.parent / "harbour_trace.toml"
+_POINT = _DEMO.parent / "genset_point.toml"
+
+
+@pytest.mark.parametrize("case,assignment,key", [
+    (_DEMO, 'brick.SCR 1.heat_loss_W_m2K="lots"', "brick[0].heat_loss_W_m2K"),
+    (_DEMO, 'brick.ASC.washcoat_um=["thin", 10]', "brick[2].washcoat_um"),
+    (_DEMO, 'brick.SCR 1.sherwood=["a"]', "brick[0].sherwood"),
+    (_DEMO, 'limits.gwp=["AR6"]', "limits.gwp"),
+    (_DEMO, 'limits.sets=[["imo_tier_iii"]]', "limits.sets"),
+    (_DEMO, 'limits.custom.0.factor="x"', "limits.custom[0].factor"),
+    (_DEMO, 'limits.custom.0.quantity=["NH3_ppmvd"]', "limits.custom[0].quantity"),
+    (_DEMO, "limits.custom.0.min_load_pct=150", "limits.custom[0].min_load_pct"),
+    (_DEMO, 'limits.custom.1.apply_exemptions="no"', "limits.custom[1].apply_exemptions"),
+    (_DEMO, 'fuel.cracked_H2="no"', "fuel.cracked_H2"),
+    (_DEMO, "sizing.cost_per_L.vanadia=0.04", "sizing.cost_per_L.vanadia"),
+    (_DEMO, "sizing.cost_per_L.vanadia_extruded=true", "sizing.cost_per_L.vanadia_extruded"),
+    (_HARBOUR, 'transient.dosing.ANR_max="high"', "transient.dosing.ANR_max"),
+    (_HARBOUR, "transient.dosing.response_s=0", "transient.dosing.response_s"),
+])
+def test_wrong_types_are_one_line_not_a_traceback(case, assignment, key, capsys):
+    """Text, lists and quoted words where numbers, keys or true/false belong: exit 2, one line
+    naming the key as the case spells it (found by reading the parsers against the schema)."""
+    rc, err = _cli(["run", str(case), "--set", assignment], capsys)
+    assert rc == 2 and len(err) == 1, err
+    assert f"'{key}'" in err[0] and "Traceback" not in err[0], err
+
+
+def test_balance_species_in_a_point_case_named_as_typed(capsys):
+    rc, err = _cli(["point", str(_POINT), "--set", "exhaust.N2_ppm=700000"], capsys)
+    assert rc == 2 and len(err) == 1 and "'exhaust.N2_ppm'" in err[0], err

@@ -209,3 +209,12 @@ def test_new_user_cases_size_to_buildable_trains_that_rerun(name, tmp_path, caps
     assert again["pass"] is True
     for k in ("NOx_g_kWh", "N2O_g_kWh", "NH3_slip_ppmvd_max"):
         assert again["cycle"][k] == pytest.approx(sized["run"]["cycle"][k], rel=1e-6)
+
+
+def test_sizing_cost_counts_every_brick_by_the_catalyst_it_names(sized):
+    """cost = sum of volume x [sizing] cost_per_L of the catalyst each [[brick]] names; the
+    slip catalyst is priced as its layered file (asc_dual_layer), not as its first layer."""
+    rep, obj = sized
+    price = {"SCR": 0.04, "ASC": 0.35}             # cases/genset_d2.toml, invented
+    expect = sum(b["volume_L"] * price[b["role"]] for b in obj["bricks"])
+    assert obj["cost"] == pytest.approx(expect, rel=1e-12)
