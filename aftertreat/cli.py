@@ -287,7 +287,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
     case = res.case
     con.print(f"[bold]{escape(case.title)}[/bold]  ({escape(str(case.file))})")
     _say_overrides(con, case)
-    con.print(f"sizing with a design margin of {case.sizing['design_margin'] * 100:.0f} % on "
+    con.print(f"sizing with a design margin of {case.sizing.design_margin * 100:.0f} % on "
               f"every limit, at the aged activities of the case")
     t = Table(title="Sized train", box=box.SIMPLE_HEAD, pad_edge=False)
     for c in ("brick", "role", "catalyst", "length mm", "diameter mm", "volume L"):

@@ -75,7 +75,7 @@ from .errors import InputError, did_you_mean
 from .train import Train
 from .units import P_ATM_PA, ZERO_C_K
 
-__all__ = ["RunCase", "EngineSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
+__all__ = ["RunCase", "EngineSpec", "SizingSpec", "load_run_case", "parse_run_case", "APPLICATIONS"]
 
 APPLICATIONS = ("marine propulsion", "auxiliary genset", "stationary engine", "gas turbine")
 # the keys each table accepts: declared once, with their meaning, in aftertreat.schema
@@ -124,7 +124,7 @@ class RunCase:
     train: Train
     limit_sets: list
     gwp_set: str
-    sizing: dict
+    sizing: "SizingSpec"
     file: str
     data: dict
     notes: list[str] = field(default_factory=list)
@@ -324,7 +324,32 @@ def _limits(data, file):
     return sets, gwp, float(warn)
 
 
-def _sizing(data, file) -> dict:
+@dataclass(frozen=True)
+class SizingSpec:
+    """The validated ``[sizing]`` table, every default here (docs/case-file.md gives each key's
+    meaning and range). Lengths in mm, as in the case file; None: not given."""
+    design_margin: float = 0.0
+    dp_max_kPa: float | None = None
+    max_length_mm: float | None = None
+    max_diameter_mm: float | None = None
+    face_velocity_m_s: float | None = None
+    ghsv_per_h: float | None = None
+    length_to_diameter: float = 1.0
+    diameter_from_dp: bool = False
+    scr_length_max_mm: float = 4000.0
+    asc_length_max_mm: float = 1000.0
+    choose_ANR: bool = True
+    ANR_excess: float = 0.05
+    cost_per_L: dict | None = None
+    N2O_max_g_kWh: float | None = None
+    CO2e_max_g_kWh: float | None = None
+    CO2e_rise_max_pct: float | None = None
+    objective: str = "volume"
+    volume_allowance_pct: float = 0.0
+    build: dict = field(default_factory=dict)      # substrate kind -> build.BuildRule
+
+
+def _sizing(data, file) -> SizingSpec:
     """The [sizing] table: design margin, back-pressure budget, space envelope, diameter rule,
     costs and search bounds (all optional)."""
     s = data.get("sizing", {})
@@ -383,7 +408,7 @@ def _sizing(data, file) -> dict:
                                  file=file)
         out["cost_per_L"] = {k: float(v) for k, v in c.items()}
     out["build"] = parse_build_rules(s.get("build"), file)
-    return out
+    return SizingSpec(**out)
 
 
 def parse_run_case(data: dict, file: str) -> RunCase:

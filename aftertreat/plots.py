@@ -40,7 +40,8 @@ def _quantity_name(quantity: str) -> str:
 
 
 def _margin(case) -> float:
-    return float(getattr(case, "sizing", {}).get("design_margin", 0.0) or 0.0)
+    spec = getattr(case, "sizing", None)
+    return float(spec.design_margin) if spec is not None else 0.0
 
 
 def compliance(result, margin: float | None = None) -> bytes:
@@ -200,7 +201,7 @@ def sizing_curves(res) -> bytes:
     the worst-mode back-pressure with its budget."""
     plt = _plt()
     t = res.curve_table()
-    m = res.case.sizing["design_margin"]
+    m = res.case.sizing.design_margin
     groups = [c[:-len("_value")] for c in t.columns if c.endswith("_value")]
     panels = [(g, f"{g}_value") for g in groups] + [("dp", "dp_kPa_max")]
     sweeps = [("SCR", "SCR_volume_L", "SCR volume [L] (slip catalyst at its size)")]
@@ -220,7 +221,7 @@ def sizing_curves(res) -> bytes:
             ax.axvline(xv, color="black", lw=1.0, ls=":")
             if g == "dp":
                 title, unit = "back-pressure, worst mode", "kPa"
-                budget = res.case.sizing.get("dp_max_kPa")
+                budget = res.case.sizing.dp_max_kPa
                 if budget:
                     ax.axhline(budget, color=_RED, lw=1.5)
             else:

@@ -485,7 +485,7 @@ KEYS: tuple[Key, ...] = tuple([
         default="none (the case's diameter)", cases=(CYCLE,)),
     Key("sizing", "length_to_diameter", NUMBER, "Length over diameter of the SCR section of the "
         "GHSV rule.", unit="-", range=Range(0.05, 20.0), allowed="only with `ghsv_per_h`",
-        default="1 (set in aftertreat/sizing.py)", cases=(CYCLE,)),
+        default_value=1.0, cases=(CYCLE,)),
     Key("sizing", "diameter_from_dp", BOOL, "Raise the diameter until the train meets "
         "`dp_max_kPa` (at most to `max_diameter_mm`).", allowed="true or false",
         default="false; acts only together with `dp_max_kPa`", cases=(CYCLE,)),
@@ -504,13 +504,13 @@ KEYS: tuple[Key, ...] = tuple([
     Key("sizing", "volume_allowance_pct", NUMBER, "Extra volume the CO2e objective may use "
         "beyond the smallest compliant train.", unit="% of the smallest volume",
         range=Range(0.0, 100.0), allowed='only with `objective = "CO2e"`',
-        default="0 (set in aftertreat/sizing.py)", cases=(CYCLE,)),
+        default_value=0.0, cases=(CYCLE,)),
     Key("sizing", "choose_ANR", BOOL, "With dosing, choose the ANR of each mode from its NOx "
         "target plus `ANR_excess`, at most the [dosing] ANR.", allowed="true or false",
-        default="true (set in aftertreat/sizing.py); acts only with dosing", cases=(CYCLE,)),
+        default_value=True, cases=(CYCLE,)),
     Key("sizing", "ANR_excess", NUMBER, "Ammonia dosed beyond the NOx target when the ANR is "
         "chosen.", unit="mol NH3 per mol NOx", range=Range(0, 0.5),
-        default="0.05 (set in aftertreat/sizing.py)", cases=(CYCLE,)),
+        default_value=0.05, cases=(CYCLE,)),
     Key("sizing", "cost_per_L", TABLE, "Catalyst cost per litre, for the cost of the sized "
         "train.", unit="your currency per litre",
         allowed="catalyst = number >= 0, keyed by the `catalyst` a [[brick]] of the case "

@@ -113,7 +113,7 @@ class SizingResult:
                 "binding": self.binding, "feasible": self.feasible, "problems": self.problems,
                 "suggestions": self.suggestions,
                 "margins": [x.to_dict() for x in self.margins],
-                "design_margin": self.case.sizing["design_margin"], "cost": self.cost,
+                "design_margin": self.case.sizing.design_margin, "cost": self.cost,
                 "continuous_optimum": self.continuous, "build_rules": self.build_rules,
                 "diameter_reason": self.diameter_reason, "objective": self.objective,
                 "layers": self.layers,
@@ -510,12 +510,13 @@ def with_sizing_caps(case):
     x (1 + pct/100), i.e. the CO2e the train may add (its N2O, and CO2 of a urea reagent)."""
     from .limits import custom_limits
     sz = case.sizing
-    rows = [{"name": name, "quantity": q, "value": sz[key], "unit": "g/kWh",
-             "source": f"sizing.{key} of the case"} for key, q, name in _CAPS if key in sz]
-    if "CO2e_rise_max_pct" in sz:
+    rows = [{"name": name, "quantity": q, "value": getattr(sz, key), "unit": "g/kWh",
+             "source": f"sizing.{key} of the case"} for key, q, name in _CAPS
+            if getattr(sz, key) is not None]
+    if sz.CO2e_rise_max_pct is not None:
         from .evaluate import engine_out_cycle
         g0 = engine_out_cycle(case)["GHG_CO2e_g_kWh"]
-        pct = sz["CO2e_rise_max_pct"]
+        pct = sz.CO2e_rise_max_pct
         rows.append({"name": f"CO2e added by the train at most {pct:g} % (sizing cap)",
                      "quantity": "GHG_CO2e_g_kWh", "value": g0 * (1.0 + pct / 100.0),
                      "unit": "g/kWh", "source": f"sizing.CO2e_rise_max_pct of the case "
@@ -552,9 +553,9 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
     t0 = time.perf_counter()
     case = with_sizing_caps(case)
     sz = case.sizing
-    m = sz["design_margin"]
-    if case.dosing["method"] != "none" and sz.get("choose_ANR", True):
-        anr = choose_anr(case, m, sz.get("ANR_excess", 0.05))
+    m = sz.design_margin
+    if case.dosing["method"] != "none" and sz.choose_ANR:
+        anr = choose_anr(case, m, sz.ANR_excess)
         if np.any(anr < case.dosing["ANR"] - 1e-12):
             chosen = dataclasses.replace(case, dosing=dict(case.dosing, ANR=anr))
             res = _size_layers(chosen, progress, curves)
@@ -572,7 +573,7 @@ def size_case(case, *, progress=None, curves: bool = True) -> SizingResult:
 def _layer_bounds(case, idx) -> tuple[int, int]:
     """(fewest, most) bricks of the section ``idx`` (brick indices) allowed by the build rules
     of its substrate kind; the case's count where the rules say nothing."""
-    rules = case.sizing["build"]
+    rules = case.sizing.build
     kinds = {case.train.bricks[i].substrate.kind for i in idx}
     n = len(idx)
     if len(kinds) != 1:                   # mixed kinds: keep the case's bricks
@@ -646,23 +647,23 @@ def _size_with_diameter(case, progress, curves: bool = True) -> SizingResult:
     sz = case.sizing
     D = case.train.bricks[0].diameter
     why = f"the case's diameter ({D * 1e3:.0f} mm)"
-    if sz.get("face_velocity_m_s"):
-        D = _face_velocity_diameter(case, mode_inlets(case), sz["face_velocity_m_s"])
-        why = (f"{D * 1e3:.0f} mm for a face velocity of {sz['face_velocity_m_s']:g} m/s at the "
+    if sz.face_velocity_m_s:
+        D = _face_velocity_diameter(case, mode_inlets(case), sz.face_velocity_m_s)
+        why = (f"{D * 1e3:.0f} mm for a face velocity of {sz.face_velocity_m_s:g} m/s at the "
                "largest exhaust flow of the cycle (sizing.face_velocity_m_s; the case's "
                f"{case.train.bricks[0].diameter * 1e3:.0f} mm is not used)")
-    elif sz.get("ghsv_per_h"):
-        D = ghsv_diameter(mode_inlets(case), sz["ghsv_per_h"], sz.get("length_to_diameter", 1.0))
-        why = (f"{D * 1e3:.0f} mm from the design GHSV {sz['ghsv_per_h']:g} 1/h at the largest "
-               f"flow with L/D {sz.get('length_to_diameter', 1.0):g} (sizing.ghsv_per_h)")
-    D_max = sz["max_diameter_mm"] / 1e3 if sz.get("max_diameter_mm") else math.inf
+    elif sz.ghsv_per_h:
+        D = ghsv_diameter(mode_inlets(case), sz.ghsv_per_h, sz.length_to_diameter)
+        why = (f"{D * 1e3:.0f} mm from the design GHSV {sz.ghsv_per_h:g} 1/h at the largest "
+               f"flow with L/D {sz.length_to_diameter:g} (sizing.ghsv_per_h)")
+    D_max = sz.max_diameter_mm / 1e3 if sz.max_diameter_mm else math.inf
     if D > D_max:
         why += f", capped at sizing.max_diameter_mm = {D_max * 1e3:.0f} mm"
     D = min(D, D_max)
     res = _size_at(case, D, progress, curves)
     D0 = D
-    if sz.get("diameter_from_dp") and sz.get("dp_max_kPa"):
-        budget = sz["dp_max_kPa"]
+    if sz.diameter_from_dp and sz.dp_max_kPa:
+        budget = sz.dp_max_kPa
         for _ in range(3):
             dp = max(mr.solution.dp_Pa for mr in res.run.modes) / 1e3
             if dp <= budget * 1.0 or D >= D_max:
@@ -683,7 +684,7 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     """Size the SCR and slip-catalyst lengths of ``case`` at diameter ``D`` [m]."""
     t0 = time.perf_counter()
     sz = case.sizing
-    m = sz["design_margin"]
+    m = sz.design_margin
     designs = _Designs(case, D)
     has_asc = bool(designs.asc)
     # the search runs on a coarse grid (see the module docstring)
@@ -691,8 +692,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
                       settings=SolverSettings(tol=1e-9, tol_accept=1e-8))
     fixed = sum(b.length for i, b in enumerate(case.train.bricks)
                 if i not in designs.scr and i not in designs.asc)
-    max_total = sz.get("max_length_mm")
-    rules = sz["build"]
+    max_total = sz.max_length_mm
+    rules = sz.build
 
     reported = set()                          # limit rows already named in a problem
     dp_capped = []                            # bricks whose longest length the dp bound sets
@@ -727,7 +728,8 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         b = case.train.bricks
         lo = min(lim[i][0] * L0 / b[i].length for i in idx)
         hi = max(lim[i][1] * L0 / b[i].length for i in idx)
-        cap, key, value = min((sz[key_max] / 1e3, f"sizing.{key_max}", sz[key_max]),
+        cap, key, value = min((getattr(sz, key_max) / 1e3, f"sizing.{key_max}",
+                               getattr(sz, key_max)),
                               (room, room_key, max_total), key=lambda t: t[0])
         shortest = designs.section_length(idx, lo, L0)
         if shortest > cap * (1 + 1e-9):
@@ -831,11 +833,11 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
     cont_res = designs(L_scr, L_asc)
     continuous = designs.train(L_scr, L_asc)
     train, res = _round_up(designs, continuous, cont_res, rules, nox, m, has_asc,
-                           {"scr": sz["scr_length_max_mm"] / 1e3,
-                            "asc": sz["asc_length_max_mm"] / 1e3,
+                           {"scr": sz.scr_length_max_mm / 1e3,
+                            "asc": sz.asc_length_max_mm / 1e3,
                             "total": max_total / 1e3 if max_total else math.inf})
     objective_note = "smallest buildable volume (sizing.objective)"
-    if sz.get("objective") == "CO2e" and feasible:
+    if sz.objective == "CO2e" and feasible:
         if progress:
             progress("least CO2e within the volume")
         train, res, objective_note = _least_co2e(designs, coarse, train, res, rules, m, sz,
@@ -862,9 +864,9 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
         elif ratio > 1.0 - 3 * SIZING_TOL - 0.01:
             binding.append(r.name)
     dp = max(mr.solution.dp_Pa for mr in res.modes) / 1e3
-    if sz.get("dp_max_kPa") and dp > sz["dp_max_kPa"]:
+    if sz.dp_max_kPa and dp > sz.dp_max_kPa:
         feasible = False
-        problems.append(f"back-pressure {dp:.2f} kPa exceeds the budget {sz['dp_max_kPa']:.2f} kPa")
+        problems.append(f"back-pressure {dp:.2f} kPa exceeds the budget {sz.dp_max_kPa:.2f} kPa")
         suggestions.append("a larger diameter or a lower cell density")
     total = sum(b.length for b in train.bricks)
     if max_total and total > max_total / 1e3 * (1 + 1e-9):
@@ -881,10 +883,10 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             coarse(L_scr, L_asc * f_)
     curves = _curves(coarse, m, L_scr, L_asc)
     cost = None
-    if sz.get("cost_per_L"):
+    if sz.cost_per_L:
         # keyed by the catalyst each [[brick]] names (a layered file's own key, not a layer's)
         keys = [str(row.get("catalyst")) for row in case.data["brick"]]
-        cost = sum(b.volume * 1e3 * sz["cost_per_L"].get(k, 0.0)
+        cost = sum(b.volume * 1e3 * sz.cost_per_L.get(k, 0.0)
                    for b, k in zip(train.bricks, keys))
     used = sorted({b.substrate.kind for i, b in enumerate(case.train.bricks)
                    if i in designs.scr or i in designs.asc})
@@ -958,18 +960,18 @@ def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc, caps
     return train, res
 
 
-def _complies(res, margin: float, sz: dict, max_total_mm) -> bool:
+def _complies(res, margin: float, sz, max_total_mm) -> bool:
     """Every limit with its margin, the back-pressure budget and the length envelope."""
     if not res.converged or _worst(res, ("",), margin) > _ACCEPT:
         return False
-    if sz.get("dp_max_kPa") and max(m.solution.dp_Pa for m in res.modes) / 1e3 \
-            > sz["dp_max_kPa"]:
+    if sz.dp_max_kPa and max(m.solution.dp_Pa for m in res.modes) / 1e3 \
+            > sz.dp_max_kPa:
         return False
     total = sum(b.length for b in res.train.bricks)
     return not (max_total_mm and total > max_total_mm / 1e3 * (1 + 1e-9))
 
 
-def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz: dict,
+def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz,
                 max_total_mm, max_moves: int = 12):
     """``[sizing] objective = "CO2e"``: from the smallest buildable train, move catalyst
     between the sized bricks one buildable step at a time (one brick up and another down, or
@@ -979,7 +981,7 @@ def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz: di
     as CO2e) falls; the best move is taken each time. Moves are screened on the coarse search
     grid (``coarse``) and the best one is confirmed on the case's grid before it is taken.
     Returns (train, result, a note of what it did)."""
-    V_max = train.volume * (1.0 + sz.get("volume_allowance_pct", 0.0) / 100.0) * (1 + 1e-9)
+    V_max = train.volume * (1.0 + sz.volume_allowance_pct / 100.0) * (1 + 1e-9)
     sized = designs.scr + designs.asc
     best, best_res = train, res
     g_start = res.cycle["GHG_CO2e_g_kWh"]

@@ -46,7 +46,7 @@ def test_an_n2o_cap_is_met_by_the_sized_train_or_answered_infeasible():
     row = [r.check for r in res.margins if r.check.name.endswith("(sizing cap)")]
     assert len(row) == 1
     if res.feasible:
-        assert row[0].value <= 1.05 * (1 - res.case.sizing["design_margin"]) * (1 + 1e-5)
+        assert row[0].value <= 1.05 * (1 - res.case.sizing.design_margin) * (1 + 1e-5)
     else:
         assert any("sizing cap" in p for p in res.problems), res.problems
 

@@ -305,7 +305,7 @@ def test_sizing_value_outside_its_range_exits_2(name, value, capsys):
     for v in _inside(schema.key("sizing", name).range)])
 def test_sizing_value_inside_its_range_validates(name, value):
     case = load_run_case(D2, [f"sizing.{name}={_toml(value)}"] + _sets(_SIZING_NEEDS.get(name, {})))
-    assert case.sizing[name] == value
+    assert getattr(case.sizing, name) == value
 
 
 # ---- (d) a sample of other tables through load_run_case ------------------------------------
@@ -501,10 +501,12 @@ _DEFAULT_SEEN = {
     ("limits", "gwp"): (D2, lambda c: c.gwp_set),
     ("limits.custom[]", "factor"): (D2, lambda c: _custom_row(c).factor),
     ("limits.custom[]", "apply_exemptions"): (D2, lambda c: _custom_row(c).apply_exemptions),
-    ("sizing", "design_margin"): (D2, lambda c: c.sizing["design_margin"]),
-    ("sizing", "scr_length_max_mm"): (D2, lambda c: c.sizing["scr_length_max_mm"]),
-    ("sizing", "asc_length_max_mm"): (D2, lambda c: c.sizing["asc_length_max_mm"]),
-    ("sizing", "objective"): (D2, lambda c: c.sizing["objective"]),
+    ("sizing", "design_margin"): (D2, lambda c: c.sizing.design_margin),
+    ("sizing", "scr_length_max_mm"): (D2, lambda c: c.sizing.scr_length_max_mm),
+    ("sizing", "asc_length_max_mm"): (D2, lambda c: c.sizing.asc_length_max_mm),
+    ("sizing", "objective"): (D2, lambda c: c.sizing.objective),
+    **{("sizing", n): (D2, (lambda n: lambda c: getattr(c.sizing, n))(n))
+       for n in ("length_to_diameter", "volume_allowance_pct", "choose_ANR", "ANR_excess")},
     ("transient", "basis"): (TRACE, lambda c: c.transient["basis"]),
     **{("transient", n): (D2, (lambda n: lambda c: c.transient[n])(n))
        for n in ("hold_s", "ramp_s", "dt_s", "start", "conduction")},
