@@ -122,7 +122,7 @@ def test_catalyst_listing_and_provenance(capsys):
 
 def test_sources_command(capsys):
     """`aftertreat sources CASE` names the catalyst papers, correlations, cycle and limit sources
-    without solving (CONVENTIONS: the program can print the sources behind any result)."""
+    without solving (docs/conventions.md: the program can print the sources behind any result)."""
     assert main(["sources", str(ROOT / "cases" / "marine_e3_tier3.toml")]) == 0
     out = capsys.readouterr().out
     assert "Nova" in out and "Tronconi" in out and "E3" in out and "MARPOL" in out

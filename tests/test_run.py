@@ -34,7 +34,7 @@ def turbine():
 
 
 def test_run_json_contract(turbine):
-    """Keys in the exact spelling of the project's CLI contract (CONVENTIONS.md)."""
+    """Keys in the exact spelling of the project's CLI contract (docs/conventions.md)."""
     o = turbine
     assert o["schema"] == "aftertreat.run/1"
     for k in ("case", "modes", "cycle", "limits", "pass"):
