@@ -48,6 +48,7 @@ from .errors import InputError
 from .reactor import SolverSettings
 from .evaluate import mode_inlets, run_case
 from .limits import governing
+from .brick import Brick
 from .train import Train
 
 __all__ = ["SizingResult", "DesignMargin", "size_case", "SIZING_TOL"]
@@ -863,6 +864,16 @@ def _size_at(case, D: float, progress, want_curves: bool = True) -> SizingResult
             suggestions += _suggest(res, (r.quantity,), m, case)
         elif ratio > 1.0 - 3 * SIZING_TOL - 0.01:
             binding.append(r.name)
+    stuck = sorted({(b.brick.name, b.brick.cells) for mr in res.modes
+                    for b in mr.solution.bricks if not b.converged})
+    if stuck:                      # the sized design itself could not be solved: say where
+        problems.append("the solver did not converge at the sized design in brick(s) "
+                        + ", ".join(f"'{n}' ({c} cells)" for n, c in stuck)
+                        + "; its numbers are flagged")
+        default_cells = Brick.__dataclass_fields__["cells"].default
+        suggestions += [f"more cells in brick '{n}' (it has {c}; the default is "
+                        f"{default_cells}): a long brick on very few cells is a stiff problem"
+                        for n, c in stuck if c < default_cells]
     dp = max(mr.solution.dp_Pa for mr in res.modes) / 1e3
     if sz.dp_max_kPa and dp > sz.dp_max_kPa:
         feasible = False
