@@ -93,6 +93,11 @@ def _quantity(table: dict, base: str, unit: str, suffix_unit: tuple[str, str] | 
               prefix: str, required: bool = True, default=None):
     """Read ``base`` (a string with its unit; a bare number is refused) or ``base_<suffix>``
     (a number in the suffix's unit), as ``unit`` (SI)."""
+    given = [k for k in (base, *(f"{base}_{suffix_unit[0]}",) * bool(suffix_unit))
+             if k in table]
+    if len(given) > 1:                   # both would be read as one: say which to keep
+        raise InputError(f"give {base} once: as {given[0]} or as {given[1]}, not both",
+                         key=f"{prefix}{given[1]}", value=table[given[1]], file=file)
     if base in table:
         v = table[base]
         if isinstance(v, (int, float)) and not isinstance(v, bool):
@@ -191,6 +196,14 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
         raise InputError("expected 'coated', 'extruded' or 'plate'" + did_you_mean(kind, (
             "coated", "extruded", "plate")), key=pre + "substrate", value=kind, file=file)
     layers = cat.layers if isinstance(cat, LayeredCatalyst) else [(cat, None)]
+    unread = {"plate": ("cpsi", "wall", "wall_mm", "wall_mil", "washcoat_um"),
+              "extruded": ("washcoat_um", "gap", "gap_mm", "plate", "plate_mm"),
+              "coated": ("gap", "gap_mm", "plate", "plate_mm")}[kind]
+    for k in unread:
+        if k in b:                       # a value the model would not read: not silently
+            raise InputError(f"this {kind} brick does not use {k}; remove it (see "
+                             "docs/case-file.md for the keys of each substrate)",
+                             key=pre + k, value=b[k], file=file)
     try:
         if kind == "plate":
             gap = _quantity(b, "gap", "m", ("mm", "mm"), file, pre)
@@ -203,6 +216,10 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
             if not isinstance(cpsi, (int, float)) or isinstance(cpsi, bool) or not cpsi > 0:
                 raise InputError("expected a cell density in cells per square inch > 0",
                                  key=pre + "cpsi", value=cpsi, file=file)
+            forms = [k for k in ("wall", "wall_mm", "wall_mil") if k in b]
+            if len(forms) > 1:
+                raise InputError(f"give the wall once: as {forms[0]} or as {forms[1]}, not "
+                                 "both", key=pre + forms[1], value=b[forms[1]], file=file)
             wall = _quantity(b, "wall", "m", ("mm", "mm"), file, pre, required=False)
             if wall is None:
                 wall = _quantity(b, "wall", "m", ("mil", "mil"), file, pre)

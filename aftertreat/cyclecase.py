@@ -376,6 +376,9 @@ def _sizing(data, file) -> SizingSpec:
     for name in ("choose_ANR", "diameter_from_dp"):
         if name in s:
             out[name] = flag(s[name], f"sizing.{name}", file)
+    if out.get("diameter_from_dp") and "dp_max_kPa" not in out:
+        raise InputError("diameter_from_dp raises the diameter to meet dp_max_kPa: give "
+                         "dp_max_kPa too", key="sizing.diameter_from_dp", value=True, file=file)
     obj = s.get("objective", "volume")
     if obj not in SIZING_OBJECTIVES:
         raise InputError("expected one of " + ", ".join(SIZING_OBJECTIVES)

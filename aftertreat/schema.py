@@ -362,25 +362,24 @@ KEYS: tuple[Key, ...] = tuple([
         default="`coated` for a layered catalyst, else required"),
     Key("brick[]", "cpsi", NUMBER, "Cell density of the honeycomb.", unit="cells per square inch",
         range=Range(0.0, lo_open=True),
-        default="required for `coated` and `extruded`; not read for `plate`"),
+        default="required for `coated` and `extruded`; refused for `plate`"),
     Key("brick[]", "wall", QUANTITY, "Wall thickness of the honeycomb (for `coated`, the bare "
         "support under the washcoat).", unit="mm", dimension="length", example='"0.7 mm"',
         range=Range(0.0, lo_open=True),
-        allowed="thinner than the cell pitch; read in the order `wall`, `wall_mm`, `wall_mil` "
-                "(the first one present counts)",
-        default="required for `coated` and `extruded`; not read for `plate`",
+        allowed="thinner than the cell pitch; give one of `wall`, `wall_mm`, `wall_mil`",
+        default="required for `coated` and `extruded`; refused for `plate`",
         alts=(("wall_mm", "mm"), ("wall_mil", "mil"))),
     Key("brick[]", "washcoat_um", NUMBERS, "Washcoat thickness of each catalyst layer, gas side "
         "first.", unit="um",
         allowed="one value per catalyst layer, each > 0, together less than half the open "
-                "cell; read for `coated` only",
+                "cell; `coated` only (refused for the other kinds)",
         default="the layer thicknesses of the catalyst file; required if it gives none"),
     Key("brick[]", "gap", QUANTITY, "Clear gap between neighbouring plates.", unit="mm",
         dimension="length", example='"4 mm"', range=Range(0.0, lo_open=True),
-        default="required for `plate`; not read otherwise", alts=(("gap_mm", "mm"),)),
+        default="required for `plate`; refused otherwise", alts=(("gap_mm", "mm"),)),
     Key("brick[]", "plate", QUANTITY, "Thickness of one catalytic plate.", unit="mm",
         dimension="length", example='"0.8 mm"', range=Range(0.0, lo_open=True),
-        default="required for `plate`; not read otherwise", alts=(("plate_mm", "mm"),)),
+        default="required for `plate`; refused otherwise", alts=(("plate_mm", "mm"),)),
     Key("brick[]", "length", QUANTITY, "Length of the brick in the flow direction.", unit="mm",
         dimension="length", example='"700 mm"', range=Range(0.0, lo_open=True),
         default="required", alts=(("length_mm", "mm"),)),
@@ -487,8 +486,8 @@ KEYS: tuple[Key, ...] = tuple([
         "GHSV rule.", unit="-", range=Range(0.05, 20.0), allowed="only with `ghsv_per_h`",
         default_value=1.0, cases=(CYCLE,)),
     Key("sizing", "diameter_from_dp", BOOL, "Raise the diameter until the train meets "
-        "`dp_max_kPa` (at most to `max_diameter_mm`).", allowed="true or false",
-        default="false; acts only together with `dp_max_kPa`", cases=(CYCLE,)),
+        "`dp_max_kPa` (at most to `max_diameter_mm`).",
+        allowed="true or false; true needs `dp_max_kPa`", default_value=False, cases=(CYCLE,)),
     Key("sizing", "N2O_max_g_kWh", NUMBER, "Cap on N2O over the cycle, for the sizing only "
         "(with the design margin).", unit="g/kWh", range=Range(0.0, 100.0), default="none",
         cases=(CYCLE,)),

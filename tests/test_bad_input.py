@@ -341,3 +341,25 @@ def test_wrong_types_are_one_line_not_a_traceback(case, assignment, key, capsys)
 def test_balance_species_in_a_point_case_named_as_typed(capsys):
     rc, err = _cli(["point", str(_POINT), "--set", "exhaust.N2_ppm=700000"], capsys)
     assert rc == 2 and len(err) == 1 and "'exhaust.N2_ppm'" in err[0], err
+
+
+@pytest.mark.parametrize("case,assignment,key", [
+    (_DEMO, "brick.SCR 1.wall_mm=0.7", "brick[0].wall_mm"),            # wall given twice
+    (_DEMO, "brick.SCR 1.length_mm=700", "brick[0].length_mm"),        # length given twice
+    (_DEMO, "brick.SCR 1.washcoat_um=30", "brick[0].washcoat_um"),     # not read for extruded
+    (_TURBINE, "brick.SCR layer 1.cpsi=35", "brick[0].cpsi"),          # not read for plate
+])
+def test_values_the_model_would_not_read_are_refused(case, assignment, key, capsys):
+    """A value given twice (two unit forms) or one the substrate kind does not use is refused
+    by name instead of being silently ignored (our own rule, docs/case-file.md)."""
+    rc, err = _cli(["run", str(case), "--set", assignment], capsys)
+    assert rc == 2 and len(err) == 1 and f"'{key}'" in err[0], err
+
+
+def test_diameter_from_dp_needs_a_budget(tmp_path, capsys):
+    text = _DEMO.read_text().replace("dp_max_kPa = 3.0 ", "diameter_from_dp = true ")
+    assert "diameter_from_dp = true" in text
+    f = tmp_path / "case.toml"
+    f.write_text(text)
+    rc, err = _cli(["size", str(f)], capsys)
+    assert rc == 2 and len(err) == 1 and "'sizing.diameter_from_dp'" in err[0], err

@@ -506,7 +506,8 @@ _DEFAULT_SEEN = {
     ("sizing", "asc_length_max_mm"): (D2, lambda c: c.sizing.asc_length_max_mm),
     ("sizing", "objective"): (D2, lambda c: c.sizing.objective),
     **{("sizing", n): (D2, (lambda n: lambda c: getattr(c.sizing, n))(n))
-       for n in ("length_to_diameter", "volume_allowance_pct", "choose_ANR", "ANR_excess")},
+       for n in ("length_to_diameter", "volume_allowance_pct", "choose_ANR", "ANR_excess",
+                 "diameter_from_dp")},
     ("transient", "basis"): (TRACE, lambda c: c.transient["basis"]),
     **{("transient", n): (D2, (lambda n: lambda c: c.transient[n])(n))
        for n in ("hold_s", "ramp_s", "dt_s", "start", "conduction")},
