@@ -169,3 +169,53 @@ def test_unknown_catalyst_edit_is_refused(case_copy):
         s.apply(s.brick_assignments("SCR 1", catalyst="no_such_catalyst"))
     assert "catalyst" in str(e.value)
     assert not s.edited
+
+
+def test_quit_with_unsaved_edits_asks_and_sized_design_can_be_saved(case_copy):
+    """q with edits not saved opens a question instead of quitting (cancel keeps the app);
+    sizing, then "use the sized design", makes the sized lengths the what-if, and saving it
+    writes the sized case; after the save, q quits at once."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(160, 50)) as pilot:
+            await _settle(app, pilot)
+            await pilot.press("s")
+            await _settle(app, pilot, timeout=120)
+            out = _text(app, "#size-out")
+            assert "smallest margins" in out and "N2O made" in out
+            await pilot.press("u")
+            await _settle(app, pilot)
+            sized = [b.length for b in app.session.sizing.train.bricks]
+            assert [b.length for b in app.session.case.train.bricks] == pytest.approx(sized)
+            assert app.session.unsaved
+            await pilot.press("q")
+            await pilot.pause()
+            assert app.screen.query_one("#quit-discard") is not None    # asked, not quit
+            await pilot.click("#quit-cancel")
+            await pilot.pause()
+            assert app.is_running
+            target = case_copy.with_name("sized.toml")
+            await pilot.press("a")
+            await pilot.pause()
+            app.screen.query_one("#save-name").value = str(target)
+            await pilot.click("#save-ok")
+            await pilot.pause()
+            again = Session(target)
+            assert [b.length for b in again.case.train.bricks] == pytest.approx(sized)
+            assert not app.session.unsaved
+            await pilot.press("q")
+            await pilot.pause()
+        assert not app.is_running
+    asyncio.run(walk())
+
+
+def test_edits_keep_one_entry_per_key_and_warn_when_they_do_nothing(case_copy):
+    s = Session(case_copy)
+    s.apply(['brick.SCR 1.length="800 mm"'])
+    s.apply(['brick.SCR 1.length="900 mm"'])
+    assert s.whatif.assignments == ['brick.SCR 1.length="900 mm"']
+    assert s.case.train.bricks[0].length == pytest.approx(0.9)
+    warnings = s.apply(["dosing.ANR=0.9"])               # the demo doses nothing
+    assert warnings and "no effect" in warnings[0]
+    s.reset()
+    assert not s.edited and not s.unsaved

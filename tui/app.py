@@ -44,6 +44,7 @@ KEYS = [
     ("r", "run_whatif", "run the what-if in the form"),
     ("b", "reset", "back to the case as loaded"),
     ("s", "size", "size the train (aftertreat size)"),
+    ("u", "use_sized", "use the sized design as the what-if (then compare or save it)"),
     ("a", "save_as", "save the edited case under a new name"),
     ("e", "export", "export the report (aftertreat run --report)"),
     ("space", "play", "trace: play or pause the time cursor"),
@@ -68,6 +69,31 @@ class HelpScreen(ModalScreen):
     @on(Button.Pressed, "#help-close")
     def _close(self) -> None:
         self.dismiss()
+
+
+class QuitScreen(ModalScreen):
+    """Quitting with edits that are not saved: save them, discard them, or stay."""
+    BINDINGS = [Binding("escape", "dismiss", "cancel")]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="save"):
+            yield Label("The what-if has edits that are not saved. Quit anyway?")
+            with Horizontal():
+                yield Button("Save first", id="quit-save", variant="primary")
+                yield Button("Discard and quit", id="quit-discard", variant="error")
+                yield Button("Cancel", id="quit-cancel")
+
+    @on(Button.Pressed, "#quit-save")
+    def _save(self) -> None:
+        self.dismiss("save")
+
+    @on(Button.Pressed, "#quit-discard")
+    def _discard(self) -> None:
+        self.dismiss("discard")
+
+    @on(Button.Pressed, "#quit-cancel")
+    def _cancel(self) -> None:
+        self.dismiss(None)
 
 
 class SaveScreen(ModalScreen):
@@ -172,7 +198,9 @@ class CycleApp(App):
                         yield Static("", id="wi-edits")
                         yield Static("", id="wi-compare")
                 with TabPane("4 Sizing", id="sizing"):
-                    yield Button(Text("Size the train (s)"), id="size-run")
+                    with Horizontal(classes="row"):
+                        yield Button(Text("Size the train (s)"), id="size-run")
+                        yield Button(Text("Use the sized design (u)"), id="size-use")
                     yield Static("Sizing finds the smallest SCR and slip-catalyst lengths that "
                                  "meet every limit with the case's design margin.", id="size-out")
                 with TabPane("5 Sources", id="sources"):
@@ -459,10 +487,31 @@ class CycleApp(App):
             lines.append(f"  {b['name']:10s} {b['role']:4s} length {b['length_mm']:.0f} mm, "
                          f"diameter {b['diameter_mm']:.0f} mm, {b['volume_L']:.0f} L")
         lines.append("binding: " + ("; ".join(res.binding) or "none within 1.5 %"))
+        if res.diameter_reason:
+            lines.append(f"diameter: {res.diameter_reason}")
+        if res.layers:
+            lines.append(f"layers: {res.layers}")
+        if res.case.dosing["method"] != "none":
+            lines.append("ANR per mode: " + ", ".join(f"{m.name} {m.anr:.2f}"
+                                                      for m in res.run.modes))
+        t = res.run.train_n2o()
+        lines.append(f"N2O made in the train {t['N2O_made_g_kWh']:+.3f} g/kWh "
+                     f"({t['N2O_made_CO2e_g_kWh']:+.0f} g CO2e/kWh)")
         for p in res.problems:
             lines.append(f"problem: {p}")
         if res.suggestions:
             lines.append("what would help: " + "; ".join(res.suggestions))
+        lines.append("")
+        lines.append("smallest margins (value / limit on the limit's basis, margin %):")
+        tight = sorted((x for x in res.margins if x.margin_pct is not None),
+                       key=lambda x: x.margin_pct)[:8]
+        for x in tight:
+            c = x.check
+            lines.append(f"  {c.row_name[:34]:34s} {c.mode or 'cycle':>7s}  "
+                         f"{_f(c.value)} / {_f(c.limit)} {c.basis}  {x.margin_pct:.0f} %"
+                         + ("" if x.pass_with_design_margin else "  FAILS the design margin"))
+        lines.append("")
+        lines.append("u: use the sized design as the what-if (compare it, then a: save it)")
         self.query_one("#size-out", Static).update(Text("\n".join(lines)))
 
     # -- events and actions ------------------------------------------------------------------
@@ -565,21 +614,28 @@ class CycleApp(App):
             if not a:
                 self._status("nothing to change: fill in the what-if form (tab 3) first")
                 return
-            s.apply(a)
+            warnings = s.apply(a)
         except InputError as exc:
             self._status(f"not applied: {exc}", error=True)
             return
+        self._clear_form()
+        self._show_edits()
+        self.compute()
+        if warnings:
+            self._status("note: " + "; ".join(warnings), error=True)
+
+    def _clear_form(self) -> None:
         for wid in ("#wi-length", "#wi-diameter", "#wi-cpsi", "#wi-activity", "#wi-anr",
                     "#wi-dT"):
             self.query_one(wid, Input).value = ""
-        self._show_edits()
-        self.compute()
 
     @on(Button.Pressed, "#wi-reset")
     def action_reset(self) -> None:
         if self.session is None:
             return
         self.session.reset()
+        self._clear_form()
+        self._show_edits()
         self._status("back to the case as loaded")
         if self.session.result is not None and not self.session.is_trace:
             self._show_all()
@@ -593,7 +649,36 @@ class CycleApp(App):
         self.query_one("#size-out", Static).update("sizing...")
         self._size_worker()
 
-    def action_save_as(self) -> None:
+    @on(Button.Pressed, "#size-use")
+    def action_use_sized(self) -> None:
+        s = self.session
+        if s is None or s.sizing is None:
+            self._status("size the train first (s)")
+            return
+        try:
+            label = s.apply_sized(s.sizing)
+        except InputError as exc:
+            self._status(f"not applied: {exc}", error=True)
+            return
+        self._show_edits()
+        self.compute()
+        self._status(f"what-if: {label}")
+
+    async def action_quit(self) -> None:
+        """Quit; with edits not yet saved, ask first (save / discard / cancel)."""
+        s = self.session
+        if s is None or not s.unsaved:
+            self.exit()
+            return
+
+        def answer(choice):
+            if choice == "discard":
+                self.exit()
+            elif choice == "save":
+                self.action_save_as(then_quit=True)
+        self.push_screen(QuitScreen(), answer)
+
+    def action_save_as(self, then_quit: bool = False) -> None:
         if self.session is None:
             return
         stem = self.case_path.stem
@@ -609,6 +694,8 @@ class CycleApp(App):
                 return
             self._status(f"saved {target}" + (f" (the file there was kept as {backup.name})"
                                               if backup else ""))
+            if then_quit:
+                self.exit()
         self.push_screen(SaveScreen(suggestion), done)
 
     def action_export(self) -> None:

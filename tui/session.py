@@ -50,6 +50,7 @@ class Session:
         self.result = None               # CycleResult of the current what-if (or the baseline)
         self.transient = None            # TransientRun of a trace case
         self.sizing = None
+        self.saved = 0                   # edits already saved to a file (count)
 
     # -- properties --------------------------------------------------------------------------
     @property
@@ -60,6 +61,11 @@ class Session:
     def edited(self) -> bool:
         return bool(self.whatif.assignments)
 
+    @property
+    def unsaved(self) -> bool:
+        """Edits made since the last save (what quitting would lose)."""
+        return self.edited and len(self.whatif.assignments) != self.saved
+
     # -- edits -------------------------------------------------------------------------------
     def preview(self, assignments: list[str]):
         """The case with ``assignments`` added to the current edits (validated), without
@@ -69,18 +75,40 @@ class Session:
             data = apply_set(data, a, str(self.path))
         return data, parse_run_case(copy.deepcopy(data), str(self.path))
 
-    def apply(self, assignments: list[str]):
-        """Add ``assignments`` to the what-if (validated first; nothing changes on error)."""
+    def apply(self, assignments: list[str]) -> list[str]:
+        """Add ``assignments`` to the what-if (validated first; nothing changes on error).
+        One entry per key: a new value replaces the earlier entry of the same key. Returns
+        warnings for edits that change nothing the model reads (an ANR without dosing)."""
         data, case = self.preview(assignments)
         self.data, self.case = data, case
-        self.whatif.assignments += list(assignments)
-        return case
+        keys = {a.split("=", 1)[0].strip() for a in assignments}
+        kept = [a for a in self.whatif.assignments if a.split("=", 1)[0].strip() not in keys]
+        self.whatif.assignments = kept + list(assignments)
+        warnings = []
+        if any(k == "dosing.ANR" for k in keys) and case.dosing["method"] == "none":
+            warnings.append("the ANR has no effect while dosing is \"none\": choose NH3 or urea "
+                            "dosing too")
+        return warnings
+
+    def apply_sized(self, res) -> str:
+        """Put the sized design of ``res`` (:class:`aftertreat.sizing.SizingResult` of this
+        session's case) into the what-if: every brick's length and diameter, the bricks the
+        sizer added or dropped, and the per-mode ANR it chose. Returns the edit's label."""
+        data = res.sized_data()
+        case = parse_run_case(copy.deepcopy(data), str(self.path))
+        label = "sized design (aftertreat size): " + ", ".join(
+            f"{b.name} {b.length * 1e3:.0f} mm" for b in case.train.bricks)
+        self.data, self.case = data, case
+        self.whatif.assignments = [a for a in self.whatif.assignments
+                                   if not a.startswith("sized design")] + [label]
+        return label
 
     def reset(self):
         """Back to the case as loaded."""
         self.data = copy.deepcopy(self.base_data)
         self.case = self.base_case
         self.whatif = WhatIf()
+        self.saved = 0
         self.result = self.base_result
 
     def brick_assignments(self, name: str, *, length_mm=None, diameter_mm=None, cpsi=None,
@@ -163,6 +191,7 @@ class Session:
         if self.whatif.assignments:
             head += "# edits: " + "; ".join(self.whatif.assignments) + "\n"
         write_atomic(target, head + to_toml(self.data))
+        self.saved = len(self.whatif.assignments)
         return target, backup
 
     def export_report(self, folder: str | Path) -> Path | None:
