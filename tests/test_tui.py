@@ -219,3 +219,29 @@ def test_edits_keep_one_entry_per_key_and_warn_when_they_do_nothing(case_copy):
     assert warnings and "no effect" in warnings[0]
     s.reset()
     assert not s.edited and not s.unsaved
+
+
+def test_enter_in_a_field_runs_the_whatif_and_escape_leaves_it(case_copy):
+    """Typed digits reach the focused field, Enter runs the what-if from it, Escape leaves
+    the field so that single-key commands work again."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(160, 50)) as pilot:
+            await _settle(app, pilot)
+            await pilot.press("3")
+            await pilot.pause()
+            app.set_focus(app.query_one("#wi-length"))
+            await pilot.press("9", "0", "0")
+            assert app.query_one("#wi-length").value == "900"
+            await pilot.press("enter")
+            await _settle(app, pilot)
+            assert app.session.edited
+            assert app.session.case.train.bricks[0].length == pytest.approx(0.9)
+            app.set_focus(app.query_one("#wi-cpsi"))
+            await pilot.press("escape")
+            await pilot.pause()
+            assert app.focused is None
+            await pilot.press("4")
+            await pilot.pause()
+            assert app.query_one("TabbedContent").active == "sizing"
+    asyncio.run(walk())

@@ -50,6 +50,8 @@ KEYS = [
     ("space", "play", "trace: play or pause the time cursor"),
     ("right_square_bracket", "step(1)", "trace: one sample forward"),
     ("left_square_bracket", "step(-1)", "trace: one sample back"),
+    ("escape", "leave_field", "leave a text field (Tab / shift+Tab move between fields, "
+               "Enter in a field runs the what-if)"),
     ("question_mark", "help", "this help"),
     ("q", "quit", "quit"),
 ]
@@ -600,6 +602,15 @@ class CycleApp(App):
         if dT:
             out += s.inlet_temperature_assignment(dT)
         return out
+
+    @on(Input.Submitted, "#wi-length, #wi-diameter, #wi-cpsi, #wi-activity, #wi-anr, #wi-dT")
+    def _submitted(self) -> None:
+        """Enter in a what-if field runs the what-if."""
+        self.action_run_whatif()
+
+    def action_leave_field(self) -> None:
+        """Escape leaves a text field, so the single-key commands work again."""
+        self.set_focus(None)
 
     @on(Button.Pressed, "#wi-run")
     def action_run_whatif(self) -> None:
