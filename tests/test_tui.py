@@ -97,7 +97,22 @@ def test_open_step_whatif_size_save(case_copy):
             # export
             await pilot.press("e")
             await pilot.pause()
+            assert app.screen.query_one("#save-name").value.endswith("genset_d2_report")
+            await pilot.click("#save-ok")
+            await pilot.pause()
             assert (case_copy.with_name("genset_d2_report") / "summary.json").exists()
+            # a second export proposes a new folder; the first report is left as it was
+            first = (case_copy.with_name("genset_d2_report") / "summary.json").read_bytes()
+            await pilot.press("e")
+            await pilot.pause()
+            assert app.screen.query_one("#save-name").value.endswith("genset_d2_report_2")
+            app.screen.query_one("#save-name").value = str(case_copy.with_name(
+                "genset_d2_report"))                          # the user insists: refused
+            await pilot.click("#save-ok")
+            await pilot.pause()
+            assert "not written" in _text(app, "#status")
+            assert (case_copy.with_name("genset_d2_report") / "summary.json").read_bytes() \
+                == first
     asyncio.run(walk())
 
 

@@ -99,19 +99,21 @@ class QuitScreen(ModalScreen):
 
 
 class SaveScreen(ModalScreen):
-    """Ask for a new file name for the edited case."""
+    """Ask for a file or folder name (saving the edited case, exporting the report)."""
     BINDINGS = [Binding("escape", "dismiss", "cancel")]
 
-    def __init__(self, suggestion: str):
+    def __init__(self, suggestion: str,
+                 prompt: str = "Save the edited case as (an existing file is backed up first):",
+                 ok: str = "Save"):
         super().__init__()
-        self.suggestion = suggestion
+        self.suggestion, self.prompt, self.ok = suggestion, prompt, ok
 
     def compose(self) -> ComposeResult:
         with Vertical(id="save"):
-            yield Label("Save the edited case as (an existing file is backed up first):")
+            yield Label(self.prompt)
             yield Input(value=self.suggestion, id="save-name")
             with Horizontal():
-                yield Button("Save", id="save-ok", variant="primary")
+                yield Button(self.ok, id="save-ok", variant="primary")
                 yield Button("Cancel", id="save-cancel")
 
     @on(Button.Pressed, "#save-ok")
@@ -127,6 +129,19 @@ class SaveScreen(ModalScreen):
 def _chosen(select: Select):
     """A Select's value, or None while it shows its prompt."""
     return None if select.is_blank() else select.value
+
+
+#: brick-table columns and their headings, in the words and units of the CLI tables
+BRICK_COLUMNS = {"name": "brick", "role": "role", "catalysts": "catalyst",
+                 "volume_L": "volume L", "GHSV_per_h": "GHSV 1/h", "T_out_C": "T out C",
+                 "dp_kPa": "dp kPa", "NO_out_ppm_wet": "NO out ppm wet",
+                 "NO2_out_ppm_wet": "NO2 out ppm wet", "NH3_out_ppm_wet": "NH3 out ppm wet",
+                 "N2O_out_ppm_wet": "N2O out ppm wet", "converged": "converged"}
+#: the cycle figures a what-if is compared on, in plain words with their units
+COMPARED = (("NOx_g_kWh", "cycle NOx [g/kWh]"), ("N2O_g_kWh", "cycle N2O [g/kWh]"),
+            ("NH3_g_kWh", "cycle NH3 [g/kWh]"),
+            ("NH3_slip_ppmvd_max", "highest NH3 slip [ppmvd, actual O2]"),
+            ("GHG_CO2e_g_kWh", "CO2 + N2O as CO2e [g/kWh]"))
 
 
 def _f(v, fmt=".3g") -> str:
@@ -337,11 +352,8 @@ class CycleApp(App):
         bt = self.query_one("#brick-table", DataTable)
         bt.clear(columns=True)
         table = sol.brick_table()
-        cols = [c for c in ("name", "role", "catalysts", "volume_L", "GHSV_per_h", "T_out_C",
-                            "dp_kPa", "NO_out_ppm_wet", "NO2_out_ppm_wet", "NH3_out_ppm_wet",
-                            "N2O_out_ppm_wet",
-                            "converged") if c in table.columns]
-        bt.add_columns(*cols)
+        cols = [c for c in BRICK_COLUMNS if c in table.columns]
+        bt.add_columns(*(BRICK_COLUMNS[c] for c in cols))
         for row in table[cols].itertuples(index=False):
             bt.add_row(*[v if isinstance(v, str) else _f(v) for v in row])
         base = s.base_result.modes[self.mode_index] if (s.base_result and s.edited) else None
@@ -473,9 +485,10 @@ class CycleApp(App):
         self.query_one("#wi-edits", Static).update(Text(text))
         if s.edited and s.base_result is not None and s.result is not None:
             c, b = s.result.cycle, s.base_result.cycle
-            cmp = [f"{k}: {_f(b[k])} -> {_f(c[k])}" for k in
-                   ("NOx_g_kWh", "N2O_g_kWh", "NH3_g_kWh", "NH3_slip_ppmvd_max")]
-            cmp.append(f"passes: {s.base_result.passed} -> {s.result.passed}")
+            cmp = [f"{label}: {_f(b[k])} -> {_f(c[k])}" for k, label in COMPARED]
+            verdict = {True: "passes every limit", False: "does not pass"}
+            cmp.append(f"limits: {verdict[s.base_result.passed]} -> "
+                       f"{verdict[s.result.passed]}")
             self.query_one("#wi-compare", Static).update(Text("What-if against the case:\n"
                                                               + "\n".join(cmp)))
         else:
@@ -714,15 +727,24 @@ class CycleApp(App):
         if s is None or s.result is None:
             self._status("nothing solved yet")
             return
-        folder = self.case_path.with_name(f"{self.case_path.stem}_report")
-        try:
-            old = s.export_report(folder)
-        except (InputError, OSError) as exc:
-            self._status(f"report not written: {exc}", error=True)
-            return
-        self._status(f"report written to {folder}/"
-                     + (f" (the earlier one moved to {old.name}/)" if old else ""))
+        base = self.case_path.with_name(f"{self.case_path.stem}_report")
+        suggestion, k = base, 1
+        while suggestion.exists() and any(suggestion.iterdir()):
+            k += 1
+            suggestion = base.with_name(f"{base.name}_{k}")
 
+        def done(name):
+            if not name:
+                return
+            try:
+                folder = s.export_report(name)
+            except (InputError, OSError) as exc:
+                self._status(f"report not written: {exc}", error=True)
+                return
+            self._status(f"report written to {folder}/")
+        self.push_screen(SaveScreen(str(suggestion), prompt="Export the report into this folder "
+                                    "(a folder that holds files is refused, never overwritten):",
+                                    ok="Export"), done)
 
 def main(case_path: str) -> int:
     """Run the app on ``case_path``; returns the exit code."""

@@ -194,17 +194,18 @@ class Session:
         self.saved = len(self.whatif.assignments)
         return target, backup
 
-    def export_report(self, folder: str | Path) -> Path | None:
-        """Write the report of the current result (as ``aftertreat run --report``), whole or
-        not at all; an earlier report in ``folder`` is moved aside, never overwritten. Returns
-        where the earlier one went (None if there was none)."""
-        from aftertreat.report import StagedFolder, case_as_run_text, write_report
+    def export_report(self, folder: str | Path) -> Path:
+        """Write the report of the current result (as ``aftertreat run --report``, the same
+        rules): whole or not at all, and never into a folder that already holds files
+        (InputError before anything is written)."""
+        from aftertreat.report import StagedFolder, case_as_run_text, check_report_folder
+        from aftertreat.report import write_report
         if self.result is None:
             raise InputError("nothing solved yet", key="report")
-        staged = StagedFolder(folder, move_old=True)
-        with staged as tmp:
+        check_report_folder(folder)
+        with StagedFolder(folder) as tmp:
             write_report(self.result, tmp, case_text=case_as_run_text(
                 self.result.case, how="terminal UI" + (
                     ", edits: " + "; ".join(self.whatif.assignments)
                     if self.whatif.assignments else "")))
-        return staged.moved_to
+        return Path(folder)
