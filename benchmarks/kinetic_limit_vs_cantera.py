@@ -37,7 +37,6 @@ ROOT = pathlib.Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "validation"))
 
-import numpy as np  # noqa: E402
 
 from machine import print_machine  # noqa: E402
 
