@@ -260,3 +260,24 @@ def test_enter_in_a_field_runs_the_whatif_and_escape_leaves_it(case_copy):
             await pilot.pause()
             assert app.query_one("TabbedContent").active == "sizing"
     asyncio.run(walk())
+
+
+@pytest.mark.parametrize("width", [100, 200])
+def test_mode_table_fits_its_panel_at_any_width(case_copy, width):
+    """Narrow and wide terminals: the mode table keeps the columns that fit its panel (mode
+    and the outlet figures first), so its text never runs into the right-hand panel; the
+    compliance lines are one per check and no wider than the panel."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(width, 48)) as pilot:
+            await _settle(app, pilot)
+            t = app.query_one("#modes")
+            labels = [str(c.label) for c in t.columns.values()]
+            assert labels[0] == "mode" and "NOx out" in labels and "NH3 out" in labels
+            used = sum(c.get_render_width(t) for c in t.columns.values())
+            assert used <= app.query_one("#left").size.width, (labels, used)
+            assert len(labels) >= (9 if width >= 200 else 5), labels
+            lines = _text(app, "#limits").splitlines()
+            assert max(len(x) for x in lines) <= app.query_one("#left").size.width
+            assert lines[-1] in ("PASSES every limit", "DOES NOT PASS")
+    asyncio.run(walk())

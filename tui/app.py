@@ -144,6 +144,53 @@ COMPARED = (("NOx_g_kWh", "cycle NOx [g/kWh]"), ("N2O_g_kWh", "cycle N2O [g/kWh]
             ("GHG_CO2e_g_kWh", "CO2 + N2O as CO2e [g/kWh]"))
 
 
+def compliance_text(res, margin: float, width: int) -> Text:
+    """Every limit check as value / limit: a bar of ten cells, the percentage and the check
+    (green below the limit less the design margin, amber inside the margin, red above the
+    limit; checks that do not apply are counted, not drawn). One line per check, cut to
+    ``width`` so nothing wraps."""
+    out = Text(f"Limits, value / limit (design margin {100 * margin:g} %)\n")
+    skipped = 0
+    for r in res.limits:
+        if r.ratio is None:
+            skipped += 1
+            continue
+        q = r.ratio
+        style = "bold red" if not r.passed else ("yellow" if q > 1 - margin else "green")
+        n = min(10, int(round(min(q, 1.0) * 10)))
+        out.append("█" * n + "░" * (10 - n), style=style)
+        label = f" {100 * q:5.0f} %  {r.mode or 'cycle':>6s}  {r.row_name}"
+        out.append(label[: max(width - 11, 10)] + "\n", style=style if q > 1 else "")
+    if skipped:
+        note = (f"({skipped} per-mode checks do not apply: idle, exempt or below a load "
+                "gate)")
+        out.append(note[: max(width, 10)] + "\n", style="dim")
+    out.append("PASSES every limit" if res.passed else "DOES NOT PASS",
+               style="bold green" if res.passed else "bold red")
+    return out
+
+
+#: mode-table columns, most important first: a narrow panel drops them from the end
+MODE_COLUMNS = ("mode", "NOx out", "NH3 out", "N2O out", "ok", "dp kPa", "ANR", "T in C",
+                "NOx in", "kW", "W")
+
+
+def _fit_columns(order, rows, width: int) -> list[str]:
+    """The columns of ``order`` that fit in ``width`` characters (each as wide as its widest
+    text plus 2 of padding), in table order (the order of ``MODE_COLUMNS`` reading left to
+    right is kept as the user knows it from the CLI: mode, W, kW, T, ANR, NOx in, outlet ...)."""
+    rows = list(rows)
+    need = {k: max([len(k)] + [len(str(r[k])) for r in rows]) + 2 for k in order}
+    chosen, used = [], 0
+    for k in order:
+        if used + need[k] <= width or not chosen:
+            chosen.append(k)
+            used += need[k]
+    cli_order = ("mode", "W", "kW", "T in C", "ANR", "NOx in", "NOx out", "NH3 out",
+                 "N2O out", "dp kPa", "ok")
+    return [k for k in cli_order if k in chosen]
+
+
 def _f(v, fmt=".3g") -> str:
     if v is None or (isinstance(v, float) and not np.isfinite(v)):
         return "-"
@@ -248,9 +295,6 @@ class CycleApp(App):
         t = self.query_one("#modes", DataTable)
         if self.session.is_trace:
             t.add_columns("t s", "kW", "T in C", "NOx out", "NH3 out", "N2O out")
-        else:
-            t.add_columns("mode", "W", "kW", "T in C", "ANR", "NOx in", "NOx out", "NH3 out",
-                          "N2O out", "dp kPa", "ok")
         self.compute()
 
     # -- workers -----------------------------------------------------------------------------
@@ -305,14 +349,21 @@ class CycleApp(App):
             return
         res, base = s.result, s.base_result
         t = self.query_one("#modes", DataTable)
-        t.clear()
+        t.clear(columns=True)
+        cells = {}
         for m, row in zip(res.modes, res.mode_table().itertuples()):
             e = m.emissions()
-            t.add_row(m.name, f"{m.weight:.2f}", f"{m.power_kW:.0f}", f"{row.T_in_C:.0f}",
-                      _f(row.ANR, ".2f"), f"{m.emissions(m.inlet)['ppmvd']['NOx']:.0f}",
-                      f"{e['ppmvd']['NOx']:.1f}", f"{e['ppmvd']['NH3']:.1f}",
-                      f"{e['ppmvd']['N2O']:.1f}", f"{row.dp_kPa:.2f}",
-                      "yes" if row.converged else "NO")
+            cells[m.name] = {
+                "mode": m.name, "W": f"{m.weight:.2f}", "kW": f"{m.power_kW:.0f}",
+                "T in C": f"{row.T_in_C:.0f}", "ANR": _f(row.ANR, ".2f"),
+                "NOx in": f"{m.emissions(m.inlet)['ppmvd']['NOx']:.0f}",
+                "NOx out": f"{e['ppmvd']['NOx']:.1f}", "NH3 out": f"{e['ppmvd']['NH3']:.1f}",
+                "N2O out": f"{e['ppmvd']['N2O']:.1f}", "dp kPa": f"{row.dp_kPa:.2f}",
+                "ok": "yes" if row.converged else "NO"}
+        cols = _fit_columns(MODE_COLUMNS, cells.values(), self._left_width())
+        t.add_columns(*cols)
+        for c in cells.values():
+            t.add_row(*(c[k] for k in cols))
         self.mode_index = min(self.mode_index, len(res.modes) - 1)
         t.move_cursor(row=self.mode_index)
         c = res.cycle
@@ -324,17 +375,24 @@ class CycleApp(App):
                  " ppmvd",
                  f"train volume {_delta(s.case.train.volume * 1e3, s.base_case.train.volume * 1e3 if s.edited else None, '.0f')} L"]
         self.query_one("#totals", Static).update(Text("\n".join(lines)))
-        lim = Text("Limits\n")
-        for r in res.limits:
-            ok = r.passed
-            lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
-            lim.append(f"{r.name}: {_f(r.value)} / {_f(r.limit)} {r.basis}\n")
-        lim.append("PASSES every limit" if res.passed else "DOES NOT PASS",
-                   style="bold green" if res.passed else "bold red")
-        self.query_one("#limits", Static).update(lim)
+        self.query_one("#limits", Static).update(
+            compliance_text(res, s.case.sizing.design_margin, self._left_width()))
         self._show_mode()
         self._show_sources()
         self._show_edits()
+
+    def _left_width(self) -> int:
+        """Characters available to the mode table (its panel less borders and scroll bar)."""
+        try:
+            w = self.query_one("#left").size.width
+        except Exception:
+            w = 0
+        return max((w or self.size.width * 2 // 5) - 3, 20)
+
+    def on_resize(self, event) -> None:
+        s = self.session
+        if s is not None and s.result is not None and not s.is_trace:
+            self._show_all()
 
     def _show_mode(self) -> None:
         s = self.session
