@@ -172,6 +172,14 @@ def test_trace_case_time_cursor(tmp_path):
             assert "t = 1 s" in _text(app, "#profile-head")
             assert "time [min]" in _text(app, "#plot-species")
             assert "Limits over the run" in _text(app, "#limits")
+            # keys and tabs fit the case kind: no mode keys, no what-if, sizing or bricks
+            assert app.check_action("next_mode", ()) is False
+            assert app.check_action("play", ()) is True
+            from textual.widgets import TabbedContent
+            tabs = app.query_one("#tabs", TabbedContent)
+            await pilot.press("3")
+            await pilot.pause()
+            assert tabs.active != "whatif" and "trace case" in _text(app, "#status")
     asyncio.run(go())
 
 

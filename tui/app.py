@@ -55,6 +55,10 @@ KEYS = [
     ("question_mark", "help", "this help"),
     ("q", "quit", "quit"),
 ]
+#: what a trace case cannot do, and what only a trace case does
+_STEADY_TABS = ("bricks", "whatif", "sizing")
+_STEADY_ACTIONS = {"next_mode", "previous_mode", "run_whatif", "size", "use_sized", "save_as"}
+_TRACE_ACTIONS = {"play", "step"}
 _SHOWN = {"n", "p", "r", "s", "a", "e", "question_mark", "q"}
 
 
@@ -295,6 +299,10 @@ class CycleApp(App):
         t = self.query_one("#modes", DataTable)
         if self.session.is_trace:
             t.add_columns("t s", "kW", "T in C", "NOx out", "NH3 out", "N2O out")
+            tabs = self.query_one("#tabs", TabbedContent)
+            for name in _STEADY_TABS:            # tabs that work on modes only
+                tabs.hide_tab(name)
+        self.refresh_bindings()
         self.compute()
 
     # -- workers -----------------------------------------------------------------------------
@@ -617,7 +625,23 @@ class CycleApp(App):
         self._show_mode()
 
     def action_tab(self, name: str) -> None:
+        if self.session is not None and self.session.is_trace and name in _STEADY_TABS:
+            self._status("a trace case has no modes: what-ifs, sizing and bricks work on "
+                         "cases with a cycle")
+            return
         self.query_one("#tabs", TabbedContent).active = name
+
+    def check_action(self, action: str, parameters) -> bool | None:
+        """Keys that fit the case kind: mode keys for a cycle, time keys for a trace (the
+        footer shows only those)."""
+        s = self.session
+        if s is None:
+            return True
+        if s.is_trace and action in _STEADY_ACTIONS:
+            return False
+        if not s.is_trace and action in _TRACE_ACTIONS:
+            return False
+        return True
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen())
