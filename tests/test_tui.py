@@ -289,3 +289,32 @@ def test_mode_table_fits_its_panel_at_any_width(case_copy, width):
             assert max(len(x) for x in lines) <= app.query_one("#left").size.width
             assert lines[-1] in ("PASSES every limit", "DOES NOT PASS")
     asyncio.run(walk())
+
+
+def test_sizing_can_be_cancelled(case_copy):
+    """x while the sizing runs stops it at its next step: nothing is kept, the tab says so,
+    and sizing again afterwards works."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(160, 48)) as pilot:
+            await _settle(app, pilot)
+            # the pilot's key presses wait for the screen to settle, which lasts as long as
+            # the sizing posts progress; so the x arrives through the sizing's first step
+            real = app.session.size
+
+            def size_with_a_key_press(progress=None):
+                def first(text):
+                    app.call_from_thread(app.action_cancel_sizing)   # what x does
+                    progress(text)
+                return real(progress=lambda text: first(text))
+            app.session.size = size_with_a_key_press
+            await pilot.press("s")
+            await _settle(app, pilot, timeout=120)
+            assert app.session.sizing is None
+            app.session.size = real
+            assert app.check_action("cancel_sizing", ()) is True
+            assert "cancelled" in _text(app, "#size-out")
+            await pilot.press("s")
+            await _settle(app, pilot, timeout=120)
+            assert app.session.sizing is not None and "feasible" in _text(app, "#size-out")
+    asyncio.run(walk())

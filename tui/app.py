@@ -44,6 +44,7 @@ KEYS = [
     ("r", "run_whatif", "run the what-if in the form"),
     ("b", "reset", "back to the case as loaded"),
     ("s", "size", "size the train (aftertreat size)"),
+    ("x", "cancel_sizing", "cancel a sizing that is running"),
     ("u", "use_sized", "use the sized design as the what-if (then compare or save it)"),
     ("a", "save_as", "save the edited case under a new name"),
     ("e", "export", "export the report (aftertreat run --report)"),
@@ -55,9 +56,14 @@ KEYS = [
     ("question_mark", "help", "this help"),
     ("q", "quit", "quit"),
 ]
+class _Cancelled(Exception):
+    """Raised from the sizing's progress callback when the user cancels it."""
+
+
 #: what a trace case cannot do, and what only a trace case does
 _STEADY_TABS = ("bricks", "whatif", "sizing")
-_STEADY_ACTIONS = {"next_mode", "previous_mode", "run_whatif", "size", "use_sized", "save_as"}
+_STEADY_ACTIONS = {"next_mode", "previous_mode", "run_whatif", "size", "use_sized", "save_as",
+                   "cancel_sizing"}
 _TRACE_ACTIONS = {"play", "step"}
 _SHOWN = {"n", "p", "r", "s", "a", "e", "question_mark", "q"}
 
@@ -221,6 +227,7 @@ class CycleApp(App):
         self.cursor = 0                       # trace time index
         self.playing = False
         self.busy = False
+        self._cancel_sizing = False
 
     # -- layout ------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -333,11 +340,19 @@ class CycleApp(App):
     def _size_worker(self) -> None:
         s = self.session
         self.busy = True
+
+        def progress(text):
+            if self._cancel_sizing:        # checked at every step of the search
+                raise _Cancelled
+            self.call_from_thread(self._status, f"sizing: {text}  (x cancels)")
         try:
-            res = s.size(progress=lambda text: self.call_from_thread(self._status,
-                                                                     f"sizing: {text}"))
+            res = s.size(progress=progress)
             self.call_from_thread(self._show_sizing, res)
             self.call_from_thread(self._status, "sizing done")
+        except _Cancelled:
+            self.call_from_thread(self.query_one("#size-out", Static).update,
+                                  "sizing cancelled; nothing changed")
+            self.call_from_thread(self._status, "sizing cancelled")
         except InputError as exc:
             self.call_from_thread(self._status, f"{exc}", True)
         except Exception as exc:        # noqa: BLE001
@@ -752,8 +767,12 @@ class CycleApp(App):
             self._status("sizing needs a case with modes")
             return
         self.action_tab("sizing")
-        self.query_one("#size-out", Static).update("sizing...")
+        self.query_one("#size-out", Static).update("sizing... (x cancels)")
+        self._cancel_sizing = False          # before the worker starts: an early x counts
         self._size_worker()
+
+    def action_cancel_sizing(self) -> None:
+        self._cancel_sizing = True
 
     @on(Button.Pressed, "#size-use")
     def action_use_sized(self) -> None:
