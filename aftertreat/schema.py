@@ -663,14 +663,20 @@ def _quoted(items) -> str:
     return ", ".join(f'`"{i}"`' for i in items)
 
 
-def _applications() -> str:
-    from .cyclecase import APPLICATIONS
-    return _quoted(APPLICATIONS)
+def _from(module: str, name: str, show=_quoted):
+    """A text maker for :data:`_FROM_CODE`: ``show`` of ``aftertreat.<module>.<name>`` (called
+    first when it is a function), imported only when the reference is built."""
+    def get() -> str:
+        import importlib
+        v = getattr(importlib.import_module(f"aftertreat.{module}"), name)
+        return show(v() if callable(v) else v)
+    return get
 
 
-def _cycles() -> str:
-    from .cycle import available_cycles
-    return _quoted(available_cycles())
+def _number(scale: float = 1.0):
+    return lambda v: f"{v * scale:g}"
+
+
 
 
 def _speed_points() -> str:
@@ -678,24 +684,12 @@ def _speed_points() -> str:
     return ", ".join(f'`"{k}"` ({v:g} %)' for k, v in points(None, None).items())
 
 
-def _weight_tol() -> str:
-    from .cycle import WEIGHT_SUM_TOL
-    return _num(WEIGHT_SUM_TOL)
-
-
-def _limit_sets() -> str:
-    from .limits import available_limit_sets
-    return _quoted(available_limit_sets())
 
 
 def _quantities() -> str:
     from .limits import QUANTITIES
     return ", ".join(f'`"{q}"` ({u})' for q, (u, _, _) in QUANTITIES.items())
 
-
-def _gwp() -> str:
-    from .emissions import GWP100
-    return _quoted(GWP100)
 
 
 def _imo_tiers() -> str:
@@ -709,29 +703,9 @@ def _o2_air_custom() -> str:
     return _num(inspect.signature(custom_limits).parameters["o2_air_pct"].default)
 
 
-def _catalysts() -> str:
-    from .catalyst import available_catalysts
-    return _quoted(available_catalysts())
 
 
-def _kinds() -> str:
-    from .geometry import KINDS
-    return _quoted(KINDS)
 
-
-def _washcoat_models() -> str:
-    from .brick import WASHCOAT_MODELS
-    return _quoted(WASHCOAT_MODELS)
-
-
-def _grids() -> str:
-    from .brick import GRIDS
-    return _quoted(GRIDS)
-
-
-def _sherwood() -> str:
-    from .transport import sherwood_methods
-    return _quoted(sherwood_methods())
 
 
 def _brick_default(name: str):
@@ -756,14 +730,6 @@ def _build_default(field: str):
     return get
 
 
-def _controls() -> str:
-    from .transient_run import CONTROLS
-    return _quoted(CONTROLS)
-
-
-def _objectives() -> str:
-    from .cyclecase import SIZING_OBJECTIVES
-    return _quoted(SIZING_OBJECTIVES)
 
 
 def _map_text(table: dict) -> str:
@@ -781,14 +747,6 @@ def _default_target() -> str:
     return _map_text(DEFAULT_TARGET)
 
 
-def _trace_quantities() -> str:
-    from .trace import QUANTITIES
-    return _code(QUANTITIES)
-
-
-def _declare_zero() -> str:
-    from .trace import DECLARE_ZERO
-    return _quoted(DECLARE_ZERO)
 
 
 def _o2_dry_air() -> str:
@@ -797,36 +755,43 @@ def _o2_dry_air() -> str:
     return f"{100.0 * float(dry_air()[INDEX['O2']]):.2f}"
 
 
-def _p_atm_kPa() -> str:
-    from .units import P_ATM_PA
-    return f"{P_ATM_PA / 1e3:g}"
 
-
-def _idle_fuel_pct() -> str:
-    from .cyclecase import IDLE_FUEL_PCT_DEFAULT
-    return f"{IDLE_FUEL_PCT_DEFAULT:g}"
-
-
-def _co2e_warn() -> str:
-    from .cyclecase import CO2E_RISE_WARN_PCT
-    return f"{CO2E_RISE_WARN_PCT:g}"
 
 
 #: ``{name}`` in a text field -> the text, from the code or data that holds the fact
 _FROM_CODE = {
-    "applications": _applications, "cycles": _cycles, "speed_points": _speed_points,
-    "weight_tol": _weight_tol, "limit_sets": _limit_sets, "quantities": _quantities,
-    "gwp": _gwp, "imo_tiers": _imo_tiers, "o2_air_custom": _o2_air_custom,
-    "catalysts": _catalysts, "kinds": _kinds, "washcoat_models": _washcoat_models,
-    "grids": _grids, "sherwood": _sherwood, "brick_sherwood": _brick_default("sherwood"),
-    "brick_cells": _brick_default("cells"), "brick_grid": _brick_default("grid"),
+    "applications": _from("cyclecase", "APPLICATIONS"),
+    "cycles": _from("cycle", "available_cycles"),
+    "speed_points": _speed_points,
+    "weight_tol": _from("cycle", "WEIGHT_SUM_TOL", _num),
+    "limit_sets": _from("limits", "available_limit_sets"),
+    "quantities": _quantities,
+    "gwp": _from("emissions", "GWP100"),
+    "imo_tiers": _imo_tiers,
+    "o2_air_custom": _o2_air_custom,
+    "catalysts": _from("catalyst", "available_catalysts"),
+    "kinds": _from("geometry", "KINDS"),
+    "washcoat_models": _from("brick", "WASHCOAT_MODELS"),
+    "grids": _from("brick", "GRIDS"),
+    "sherwood": _from("transport", "sherwood_methods"),
+    "brick_sherwood": _brick_default("sherwood"),
+    "brick_cells": _brick_default("cells"),
+    "brick_grid": _brick_default("grid"),
     "brick_nodes_per_layer": _brick_default("nodes_per_layer"),
-    "solid_heat_capacity": _solid_heat_capacity, "build_step_mm": _build_default("step_mm"),
-    "build_min_mm": _build_default("min_mm"), "build_max_mm": _build_default("max_mm"),
-    "controls": _controls, "objectives": _objectives, "default_anr_map": _default_anr_map,
-    "default_target": _default_target, "trace_quantities": _trace_quantities,
-    "declare_zero": _declare_zero, "o2_dry_air": _o2_dry_air, "p_atm_kPa": _p_atm_kPa,
-    "idle_fuel_pct": _idle_fuel_pct, "co2e_warn": _co2e_warn,
+    "solid_heat_capacity": _solid_heat_capacity,
+    "build_step_mm": _build_default("step_mm"),
+    "build_min_mm": _build_default("min_mm"),
+    "build_max_mm": _build_default("max_mm"),
+    "controls": _from("transient_run", "CONTROLS"),
+    "objectives": _from("cyclecase", "SIZING_OBJECTIVES"),
+    "default_anr_map": _default_anr_map,
+    "default_target": _default_target,
+    "trace_quantities": _from("trace", "QUANTITIES", _code),
+    "declare_zero": _from("trace", "DECLARE_ZERO"),
+    "o2_dry_air": _o2_dry_air,
+    "p_atm_kPa": _from("units", "P_ATM_PA", _number(1e-3)),
+    "idle_fuel_pct": _from("cyclecase", "IDLE_FUEL_PCT_DEFAULT", _number()),
+    "co2e_warn": _from("cyclecase", "CO2E_RISE_WARN_PCT", _number()),
 }
 _PLACEHOLDER = re.compile(r"\{([A-Za-z_0-9]+)\}")
 
