@@ -82,6 +82,13 @@ def to_json(obj) -> str:
     return json.dumps(_clean(obj), indent=2, allow_nan=False)
 
 
+def current_umask() -> int:
+    """The process's file-creation mask (read by setting it and putting it back)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def write_atomic(path: str | Path, text: str | bytes) -> None:
     """Write a file through a temporary file in the same folder and rename it into place."""
     path = Path(path)
@@ -91,9 +98,7 @@ def write_atomic(path: str | Path, text: str | bytes) -> None:
     try:
         with os.fdopen(fd, mode) as fh:
             fh.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)          # mkstemp makes 0600; give normal permissions
+        os.chmod(tmp, 0o666 & ~current_umask())    # mkstemp makes 0600; give normal permissions
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from . import plots
 from .errors import InputError
-from .output import SAFETY_NOTE, to_json, write_atomic
+from .output import SAFETY_NOTE, current_umask, to_json, write_atomic
 
 __all__ = ["write_report", "write_size_report", "write_transient_report", "to_toml",
            "sources_text", "case_as_run_text", "check_report_folder", "StagedFolder"]
@@ -114,7 +114,7 @@ class StagedFolder:
             shutil.rmtree(self.path, ignore_errors=True)
             return False
         try:
-            os.chmod(self.path, 0o777 & ~_umask())     # mkdtemp makes 0700
+            os.chmod(self.path, 0o777 & ~current_umask())     # mkdtemp makes 0700
             t = self.target
             if t.is_dir() and not any(t.iterdir()):
                 t.rmdir()
@@ -136,13 +136,6 @@ class StagedFolder:
             shutil.rmtree(self.path, ignore_errors=True)
             raise
         return False
-
-
-def _umask() -> int:
-    import os
-    m = os.umask(0)
-    os.umask(m)
-    return m
 
 
 def header_comments(file: str | Path) -> str:

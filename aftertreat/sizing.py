@@ -227,12 +227,20 @@ class _Designs:
                 L = self.brick_length(i, L_scr, self.L_scr0)
             elif i in self.asc and self.L_asc0 > 0:
                 L = self.brick_length(i, L_asc, self.L_asc0)
-            kw = {}
-            if self.grid is not None:        # coarse search grid
-                kw = {"cells": min(x.cells, self.grid[0]),
-                      "nodes_per_layer": min(x.nodes_per_layer, self.grid[1])}
-            new.append(dataclasses.replace(x, length=L, diameter=self.D, **kw))
+            new.append(dataclasses.replace(x, length=L, diameter=self.D, **self._grid(x)))
         return Train(new)
+
+    def _grid(self, brick) -> dict:
+        """Grid keywords of ``brick`` on this evaluator's grid: cells and washcoat nodes at
+        most those of the coarse search grid, if it has one."""
+        if self.grid is None:
+            return {}
+        return {"cells": min(brick.cells, self.grid[0]),
+                "nodes_per_layer": min(brick.nodes_per_layer, self.grid[1])}
+
+    def on_grid(self, train: Train) -> Train:
+        """``train`` on this evaluator's grid (:meth:`_grid`)."""
+        return Train([dataclasses.replace(x, **self._grid(x)) for x in train.bricks])
 
     def run(self, train: Train, like=None):
         """Evaluate an explicit train (same bricks and grids as :meth:`train`), warm-started
@@ -1028,11 +1036,7 @@ def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz,
                 trial.append(t)
         screened = []
         for t in trial:
-            tc = Train([dataclasses.replace(x, cells=min(x.cells, coarse.grid[0]),
-                                            nodes_per_layer=min(x.nodes_per_layer,
-                                                                coarse.grid[1]))
-                        for x in t.bricks])
-            r = coarse.run(tc, like=like)
+            r = coarse.run(coarse.on_grid(t), like=like)
             if r.converged and like is None:
                 like = r
             if _complies(r, margin, sz, max_total_mm):
