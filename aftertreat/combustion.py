@@ -42,6 +42,7 @@ from .units import P_ATM_PA
 
 __all__ = ["FUELS", "MINOR_SPECIES", "FuelBlend", "Combustion", "fuel_data", "fuel_elements",
            "fuel_molar_mass", "lhv_J_mol", "lhv_MJ_kg", "stoich_O2_mol_per_mol", "dry_air",
+           "dry_air_o2_pct", "check_dry_o2",
            "humidity_mol_per_mol_dry_air", "combustion", "combustion_products",
            "exhaust_from_measurements"]
 
@@ -106,6 +107,21 @@ def lhv_J_mol(fuel: str) -> float:
 def lhv_MJ_kg(fuel: str) -> float:
     """Lower heating value [MJ/kg] = lhv_J_mol / M / 1e6."""
     return lhv_J_mol(fuel) / fuel_molar_mass(fuel) / 1e6
+
+
+def dry_air_o2_pct() -> float:
+    """O2 of dry air [%] (fuels.toml)."""
+    return 100.0 * float(dry_air()[INDEX["O2"]])
+
+
+def check_dry_o2(o2_dry_pct: float, *, key: str, value=None, file=None, where: str = "") -> None:
+    """Refuse an exhaust holding more O2 on a dry basis than dry air does (no engine makes
+    that: the O2, water or basis given are inconsistent). ``where`` prefixes the message."""
+    o2_air = dry_air_o2_pct()
+    if o2_dry_pct > o2_air:
+        raise InputError(f"{where}the O2 and water give {o2_dry_pct:.2f} % O2 dry, more than dry "
+                         f"air holds ({o2_air:.2f} %): check O2_pct, H2O_pct and basis",
+                         key=key, value=value, file=file)
 
 
 def dry_air() -> np.ndarray:
@@ -304,11 +320,8 @@ def exhaust_from_measurements(*, T_K: float, p_Pa: float = P_ATM_PA,
     if not (np.isfinite(o2_wet) and o2_wet >= 0):
         raise InputError("expected an O2 content >= 0", key="O2_pct", value=O2_pct)
     x["O2"], x["H2O"] = o2_wet * scale_o2, h2o
-    o2_air = float(dry_air()[INDEX["O2"]])
-    if h2o < 1.0 and x["O2"] / (1.0 - h2o) > o2_air:     # more O2 than air on a dry basis
-        raise InputError(f"the O2 and water give {100 * x['O2'] / (1 - h2o):.2f} % O2 dry, "
-                         f"more than dry air holds ({100 * o2_air:.2f} %): check O2_pct, "
-                         "H2O_pct and basis", key="O2_pct", value=O2_pct)
+    if h2o < 1.0:
+        check_dry_o2(100.0 * x["O2"] / (1.0 - h2o), key="O2_pct", value=O2_pct)
     if sum(x.values()) > 1.0:
         raise InputError("mole fractions add up to more than 100 %", key="O2_pct",
                          value=round(100 * sum(x.values()), 4))

@@ -262,17 +262,12 @@ def _engine_out(data, n, file, names=None) -> dict:
             raise InputError("expected 'wet' or 'dry'", key=pre + "basis", value=basis, file=file)
         out["basis"] = basis
         # a dry O2 above that of air cannot come out of an engine: refused at load, by mode
-        from .combustion import dry_air
-        from .species import INDEX
-        o2_air = 100.0 * float(dry_air()[INDEX["O2"]])
+        from .combustion import check_dry_o2
         dry = out["O2_pct"] / (1.0 - out["H2O_pct"] / 100.0) if basis == "wet" \
             else out["O2_pct"]
-        for i in np.nonzero(dry > o2_air)[0]:
-            mode = names[i] if names else str(i + 1)
-            raise InputError(f"mode '{mode}': the O2 and water give {dry[i]:.2f} % O2 dry, more "
-                             f"than dry air holds ({o2_air:.2f} %): check O2_pct, H2O_pct and "
-                             "basis", key=pre + "O2_pct", value=float(out["O2_pct"][i]),
-                             file=file)
+        for i, o2 in enumerate(dry):
+            check_dry_o2(float(o2), key=pre + "O2_pct", value=float(out["O2_pct"][i]), file=file,
+                         where=f"mode '{names[i] if names else i + 1}': ")
     return out
 
 

@@ -677,19 +677,14 @@ def _number(scale: float = 1.0):
     return lambda v: f"{v * scale:g}"
 
 
-
-
 def _speed_points() -> str:
     from .cycle import _speed_points as points
     return ", ".join(f'`"{k}"` ({v:g} %)' for k, v in points(None, None).items())
 
 
-
-
 def _quantities() -> str:
     from .limits import QUANTITIES
     return ", ".join(f'`"{q}"` ({u})' for q, (u, _, _) in QUANTITIES.items())
-
 
 
 def _imo_tiers() -> str:
@@ -701,11 +696,6 @@ def _o2_air_custom() -> str:
     import inspect
     from .limits import custom_limits
     return _num(inspect.signature(custom_limits).parameters["o2_air_pct"].default)
-
-
-
-
-
 
 
 def _brick_default(name: str):
@@ -730,8 +720,6 @@ def _build_default(field: str):
     return get
 
 
-
-
 def _map_text(table: dict) -> str:
     return "`{ " + ", ".join(f"{k} = [{', '.join(f'{v:g}' for v in vals)}]"
                              for k, vals in table.items()) + " }`"
@@ -745,17 +733,6 @@ def _default_anr_map() -> str:
 def _default_target() -> str:
     from .transient_run import DEFAULT_TARGET
     return _map_text(DEFAULT_TARGET)
-
-
-
-
-def _o2_dry_air() -> str:
-    from .combustion import dry_air
-    from .species import INDEX
-    return f"{100.0 * float(dry_air()[INDEX['O2']]):.2f}"
-
-
-
 
 
 #: ``{name}`` in a text field -> the text, from the code or data that holds the fact
@@ -788,7 +765,7 @@ _FROM_CODE = {
     "default_target": _default_target,
     "trace_quantities": _from("trace", "QUANTITIES", _code),
     "declare_zero": _from("trace", "DECLARE_ZERO"),
-    "o2_dry_air": _o2_dry_air,
+    "o2_dry_air": _from("combustion", "dry_air_o2_pct", lambda v: f"{v:.2f}"),
     "p_atm_kPa": _from("units", "P_ATM_PA", _number(1e-3)),
     "idle_fuel_pct": _from("cyclecase", "IDLE_FUEL_PCT_DEFAULT", _number()),
     "co2e_warn": _from("cyclecase", "CO2E_RISE_WARN_PCT", _number()),
