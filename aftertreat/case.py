@@ -89,12 +89,15 @@ def _unknown(table: dict, allowed: set, file: str, prefix: str) -> None:
                              + ", ".join(sorted(allowed)), key=f"{prefix}{k}", file=file)
 
 
-def _quantity(table: dict, base: str, unit: str, suffix_unit: tuple[str, str] | None, file: str,
+def _quantity(table: dict, base: str, unit: str, suffix_unit, file: str,
               prefix: str, required: bool = True, default=None):
     """Read ``base`` (a string with its unit; a bare number is refused) or ``base_<suffix>``
-    (a number in the suffix's unit), as ``unit`` (SI)."""
-    given = [k for k in (base, *(f"{base}_{suffix_unit[0]}",) * bool(suffix_unit))
-             if k in table]
+    (a number in the suffix's unit), as ``unit`` (SI). ``suffix_unit`` is one ``(suffix,
+    unit)`` pair, several (``wall_mm`` or ``wall_mil``), or None; at most one form may be
+    given."""
+    pairs = [] if not suffix_unit else (
+        [suffix_unit] if isinstance(suffix_unit[0], str) else list(suffix_unit))
+    given = [k for k in (base, *(f"{base}_{s}" for s, _ in pairs)) if k in table]
     if len(given) > 1:                   # both would be read as one: say which to keep
         raise InputError(f"give {base} once: as {given[0]} or as {given[1]}, not both",
                          key=f"{prefix}{given[1]}", value=table[given[1]], file=file)
@@ -102,20 +105,21 @@ def _quantity(table: dict, base: str, unit: str, suffix_unit: tuple[str, str] | 
         v = table[base]
         if isinstance(v, (int, float)) and not isinstance(v, bool):
             # a bare number has no unit: refuse it rather than guess (700 is not 700 m)
-            show = suffix_unit[1] if suffix_unit else unit
-            alt = f", or {base}_{suffix_unit[0]} = {v:g}" if suffix_unit else ""
+            show = pairs[0][1] if pairs else unit
+            alt = f", or {base}_{pairs[0][0]} = {v:g}" if pairs else ""
             raise InputError(f'expected a quantity with its unit, e.g. {base} = "{v:g} {show}"'
                              f"{alt}", key=f"{prefix}{base}", value=v, file=file)
         return to_si(v, unit, key=f"{prefix}{base}", file=file)
-    if suffix_unit and f"{base}_{suffix_unit[0]}" in table:
-        key = f"{base}_{suffix_unit[0]}"
-        v = table[key]
-        if not isinstance(v, (int, float)) or isinstance(v, bool):
-            raise InputError(f"expected a number in {suffix_unit[1]}", key=f"{prefix}{key}",
-                             value=v, file=file)
-        return to_si(f"{v} {suffix_unit[1]}", unit, key=f"{prefix}{key}", file=file)
+    for suffix, suffix_u in pairs:
+        key = f"{base}_{suffix}"
+        if key in table:
+            v = table[key]
+            if not isinstance(v, (int, float)) or isinstance(v, bool):
+                raise InputError(f"expected a number in {suffix_u}", key=f"{prefix}{key}",
+                                 value=v, file=file)
+            return to_si(f"{v} {suffix_u}", unit, key=f"{prefix}{key}", file=file)
     if required:
-        alt = f" (or {base}_{suffix_unit[0]})" if suffix_unit else ""
+        alt = f" (or {', '.join(f'{base}_{s}' for s, _ in pairs)})" if pairs else ""
         raise InputError(f"missing; expected {base}{alt}", key=f"{prefix}{base}", file=file)
     return default
 
@@ -216,13 +220,7 @@ def parse_brick(b: dict, i: int, file: str) -> Brick:
             if not isinstance(cpsi, (int, float)) or isinstance(cpsi, bool) or not cpsi > 0:
                 raise InputError("expected a cell density in cells per square inch > 0",
                                  key=pre + "cpsi", value=cpsi, file=file)
-            forms = [k for k in ("wall", "wall_mm", "wall_mil") if k in b]
-            if len(forms) > 1:
-                raise InputError(f"give the wall once: as {forms[0]} or as {forms[1]}, not "
-                                 "both", key=pre + forms[1], value=b[forms[1]], file=file)
-            wall = _quantity(b, "wall", "m", ("mm", "mm"), file, pre, required=False)
-            if wall is None:
-                wall = _quantity(b, "wall", "m", ("mil", "mil"), file, pre)
+            wall = _quantity(b, "wall", "m", (("mm", "mm"), ("mil", "mil")), file, pre)
             if kind == "coated":
                 wc = b.get("washcoat_um")
                 if wc is None:
