@@ -185,20 +185,18 @@ MODE_COLUMNS = ("mode", "NOx out", "NH3 out", "N2O out", "ok", "dp kPa", "ANR", 
                 "NOx in", "kW", "W")
 
 
-def _fit_columns(order, rows, width: int) -> list[str]:
-    """The columns of ``order`` that fit in ``width`` characters (each as wide as its widest
-    text plus 2 of padding), in table order (the order of ``MODE_COLUMNS`` reading left to
-    right is kept as the user knows it from the CLI: mode, W, kW, T, ANR, NOx in, outlet ...)."""
+def _fit_columns(priority, rows, width: int) -> list[str]:
+    """The columns of ``priority`` (most important first) that fit in ``width`` characters,
+    each as wide as its widest text plus 2 of padding, in the order of the rows' own keys
+    (the table's reading order, as in the CLI)."""
     rows = list(rows)
-    need = {k: max([len(k)] + [len(str(r[k])) for r in rows]) + 2 for k in order}
-    chosen, used = [], 0
-    for k in order:
+    need = {k: max([len(k)] + [len(str(r[k])) for r in rows]) + 2 for k in priority}
+    chosen, used = set(), 0
+    for k in priority:
         if used + need[k] <= width or not chosen:
-            chosen.append(k)
+            chosen.add(k)
             used += need[k]
-    cli_order = ("mode", "W", "kW", "T in C", "ANR", "NOx in", "NOx out", "NH3 out",
-                 "N2O out", "dp kPa", "ok")
-    return [k for k in cli_order if k in chosen]
+    return [k for k in (rows[0] if rows else priority) if k in chosen]
 
 
 def _f(v, fmt=".3g") -> str:
