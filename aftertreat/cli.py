@@ -311,7 +311,7 @@ def _print_size(res, safety: str, report: str | None) -> None:
         con.print("ANR per mode (NH3/NOx dosed): " + ", ".join(
             f"{m.name} {m.anr:.2f}" for m in res.run.modes))
     c = res.run.cycle
-    dp = max(m.solution.dp_Pa for m in res.run.modes) / 1e3
+    dp = res.run.dp_kPa_max
     con.print(f"total {res.train.volume * 1e3:.0f} L; cycle NOx {c['NOx_g_kWh']:.3f} g/kWh, "
               f"N2O {c['N2O_g_kWh']:.3f} g/kWh, max NH3 slip {c['NH3_slip_ppmvd_max']:.2f} "
               f"ppmvd as measured; back-pressure {dp:.2f} kPa (worst mode)"

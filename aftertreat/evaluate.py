@@ -138,6 +138,11 @@ class CycleResult:
         """The per-mode table (:meth:`mode_table`)."""
         return self.mode_table()
 
+    @property
+    def dp_kPa_max(self) -> float:
+        """Back-pressure of the train at its worst mode [kPa]."""
+        return max(m.solution.dp_Pa for m in self.modes) / 1e3
+
     def train_n2o(self) -> dict:
         """The N2O the train made over the cycle and what it does to the greenhouse-gas total
         (cycle values, GWP100 of the case's set): outlet minus engine-out."""
