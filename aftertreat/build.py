@@ -84,6 +84,10 @@ class BuildRule:
         """The buildable length one step above ``length_m`` [m] (capped at the longest)."""
         return min(self.round_up(length_m) + self.step_mm / 1e3, self.longest_m)
 
+    def next_down(self, length_m: float) -> float:
+        """The buildable length one step below ``length_m`` [m] (held at the shortest)."""
+        return self.round_down(length_m - self.step_mm / 1e3 * (1 - 1e-6))
+
     def describe(self) -> str:
         extra = []
         if self.L_D_min is not None or self.L_D_max is not None:

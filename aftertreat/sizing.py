@@ -951,7 +951,7 @@ def _round_up(designs, continuous: Train, res, rules, nox, margin, has_asc, caps
     for i in sorted(sized, key=lambda k: -b[k].length):      # back within the bounds
         if not fits(i, b[i].length):
             rule = rules[b[i].substrate.kind]
-            down = rule.round_down(b[i].length - rule.step_mm / 1e3 * (1 - 1e-6))
+            down = rule.next_down(b[i].length)
             if down >= designs.limits[i][0] - 1e-12:
                 b[i] = dataclasses.replace(b[i], length=down)
     if all(x.length == y.length for x, y in zip(b, continuous.bricks)):
@@ -1010,8 +1010,7 @@ def _least_co2e(designs, coarse, train: Train, res, rules, margin: float, sz,
 
         def stepped(i, up):
             rule = rules[b[i].substrate.kind]
-            L = rule.next_up(b[i].length) if up else rule.round_down(
-                b[i].length - rule.step_mm / 1e3 * (1 - 1e-6))
+            L = rule.next_up(b[i].length) if up else rule.next_down(b[i].length)
             lo, hi = designs.limits.get(i, (rule.shortest_m, rule.longest_m))
             return L if lo - 1e-12 <= L <= hi + 1e-12 and abs(L - b[i].length) > 1e-9 else None
 
