@@ -270,13 +270,14 @@ def write_size_report(res, folder: str | Path) -> list[Path]:
 
 
 def write_transient_report(trun, run_obj: dict, folder: str | Path,
-                           with_cycle: bool = False) -> list[Path]:
+                           with_cycle: bool = False, case_text: str | None = None) -> list[Path]:
     """Write a transient run into ``folder``: ``transient.csv`` (the time series, units in the
     column names), ``transient.png``, ``summary.json`` (the run object with its ``transient``
     section) and the limit rows over the run. Without a cycle report beside it
     (``with_cycle`` false) it also writes what a cycle report has: ``limits.csv`` (here the
     rows over the run), ``sources.txt``, ``provenance.csv``, ``case_as_run.toml`` and
-    ``SAFETY.txt``; with one, the run's rows go to ``transient_limits.csv``."""
+    ``SAFETY.txt``; with one, the run's rows go to ``transient_limits.csv``. ``case_text``
+    replaces the default :func:`case_as_run_text`."""
     import pandas as pd
     folder = Path(folder)
     written = []
@@ -295,6 +296,7 @@ def write_transient_report(trun, run_obj: dict, folder: str | Path,
     put("limits.csv", lim)
     put("sources.txt", sources_text(trun))
     put("provenance.csv", _csv(trun.train.provenance()))
-    put("case_as_run.toml", case_as_run_text(trun.case))
+    put("case_as_run.toml", case_text if case_text is not None
+        else case_as_run_text(trun.case))
     put("SAFETY.txt", SAFETY_NOTE + "\n")
     return written

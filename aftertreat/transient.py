@@ -399,7 +399,8 @@ def _blend(a: Stream, b: Stream, w: float) -> Stream:
 
 
 def simulate(train, times, inlets, *, state: TrainState | None = None,
-             settings: TransientSettings | None = None, progress=None) -> TransientResult:
+             settings: TransientSettings | None = None, progress=None,
+             partial=None, partial_every_s: float = 2.0) -> TransientResult:
     """Run ``train`` through a time series.
 
     ``times`` [s] (increasing); ``inlets`` gives the train inlet at each time: a list of
@@ -408,6 +409,10 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
     first inlet, :func:`start`); each interval is crossed in error-controlled sub-steps (BDF2)
     with the inlet linear in time (module docstring), or in one implicit-Euler step when
     ``settings.error_control`` is off.
+
+    ``progress(i, N)`` is called before each interval; ``partial(result)``, when given, about
+    every ``partial_every_s`` seconds of wall time with the :class:`TransientResult` of the
+    points computed so far (copies: a viewer can show the run while it goes on).
     """
     st = settings or TransientSettings()
     ss = st.solver()
@@ -442,10 +447,25 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
             Tmean[i, k] = Ts.mean()
             Tmax[i, k] = Ts.max()
 
+    names = [b.problem.brick.name for b in state.bricks]
+
+    def pack(n: int) -> TransientResult:
+        """The first ``n`` points (all of them: the arrays themselves; fewer: copies)."""
+        c = (lambda a: a) if n == N else (lambda a: a[:n].copy())
+        return TransientResult(t_s=times[:n].copy(), inlet_F=c(inF),
+                               inlet_T_K=c(inT), outlet_F=c(outF), outlet_T_K=c(outT),
+                               stored_nh3_mol=c(stored), solid_T_mean_K=c(Tmean),
+                               solid_T_max_K=c(Tmax), reacted_nh3_mol_s=c(reacted),
+                               converged=c(conv), residual=c(resid), jacobians=c(jac),
+                               brick_names=list(names), substeps=c(subs), rejected=c(rej),
+                               inlet_mol=c(in_mol), outlet_mol=c(out_mol),
+                               reacted_nh3_mol=c(reacted_mol), seconds=time.perf_counter() - t0)
+
     stream = first
     for run in state.bricks:
         stream = _outlet(run, stream)
     record(0, first, stream)
+    next_partial = time.perf_counter() + partial_every_s
     state.t_s = float(times[0])
     prev_inlet = first
     h_next = float(times[1] - times[0])
@@ -519,10 +539,7 @@ def simulate(train, times, inlets, *, state: TrainState | None = None,
             reacted_mol[i] += inc[2]
             carry = inc
         prev_inlet = inlet
-    return TransientResult(t_s=times.copy(), inlet_F=inF, inlet_T_K=inT, outlet_F=outF,
-                           outlet_T_K=outT, stored_nh3_mol=stored, solid_T_mean_K=Tmean,
-                           solid_T_max_K=Tmax, reacted_nh3_mol_s=reacted, converged=conv,
-                           residual=resid, jacobians=jac,
-                           brick_names=[b.problem.brick.name for b in state.bricks],
-                           substeps=subs, rejected=rej, inlet_mol=in_mol, outlet_mol=out_mol,
-                           reacted_nh3_mol=reacted_mol, seconds=time.perf_counter() - t0)
+        if partial is not None and i < N - 1 and time.perf_counter() >= next_partial:
+            partial(pack(i + 1))
+            next_partial = time.perf_counter() + partial_every_s
+    return pack(N)

@@ -313,6 +313,21 @@ class TransientRun:
     anr_cmd: np.ndarray                # the ANR the control asked for [N]
     seconds: float
     train: object = None               # the Train that was run (the case's, or a what-if's)
+    complete: bool = True              # False: the first points of a run still going on
+    planned_s: float | None = None     # of a partial run: the whole run's duration [s]
+
+    def head(self) -> "TransientRun":
+        """This run cut to the points :attr:`result` holds (a partial run's timeline and
+        dosing arrays are the whole run's)."""
+        n = len(self.result.t_s)
+        tl = self.timeline
+        if len(tl.t_s) == n:
+            return self
+        cut = Timeline(t_s=tl.t_s[:n], power_kW=tl.power_kW[:n], engine_out=tl.engine_out[:n],
+                       anr_fixed=tl.anr_fixed[:n], air_CO2_mol_s=tl.air_CO2_mol_s[:n],
+                       source=tl.source)
+        return dataclasses.replace(self, timeline=cut, reagent_mol_s=self.reagent_mol_s[:n].copy(),
+                                   anr_cmd=self.anr_cmd[:n].copy())
 
     # -- per-step quantities --------------------------------------------------------------------
     def _outlet_streams(self) -> list[Stream]:
@@ -471,9 +486,14 @@ class TransientRun:
                 "solve_s": s["solve_s"]}
 
 
-def run_transient(case, *, train=None, progress=None,
+def run_transient(case, *, train=None, progress=None, partial=None,
+                  partial_every_s: float = 2.0,
                   settings: TransientSettings | None = None) -> TransientRun:
-    """Run the ``[transient]`` part of ``case`` (see the module docstring)."""
+    """Run the ``[transient]`` part of ``case`` (see the module docstring).
+
+    ``progress(i, N)`` before each interval; ``partial(run)``, when given, every
+    ``partial_every_s`` seconds of wall time with the :class:`TransientRun` of the points done so far (``complete`` False), for a
+    viewer that shows the run as it goes."""
     t0 = time.perf_counter()
     tr = case.transient
     if tr is None:
@@ -489,7 +509,14 @@ def run_transient(case, *, train=None, progress=None,
     else:
         T0 = tr["T_start_C"] + ZERO_C_K if tr["T_start_C"] is not None else None
         state = start(train, inlet0, steady=False, T_start_K=T0, settings=st)
+    def on_partial(r):
+        partial(TransientRun(case=case, timeline=tl, result=r, reagent_mol_s=doser.reagent,
+                             anr_cmd=doser.anr_cmd, seconds=time.perf_counter() - t0,
+                             train=train, complete=False,
+                             planned_s=float(tl.t_s[-1] - tl.t_s[0])).head())
     res = simulate(train, tl.t_s, lambda i, s: inlet0 if i == 0 else doser(i, s), state=state,
-                   settings=st, progress=progress)
+                   settings=st, progress=progress,
+                   partial=None if partial is None else on_partial,
+                   partial_every_s=partial_every_s)
     return TransientRun(case=case, timeline=tl, result=res, reagent_mol_s=doser.reagent,
                         anr_cmd=doser.anr_cmd, seconds=time.perf_counter() - t0, train=train)

@@ -178,3 +178,27 @@ def test_one_row_trace_is_refused(tmp_path, capsys):
     assert main(["run", str(f)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "transient.trace" in err[0] and "two data rows" in err[0], err
+
+
+def test_partial_runs_are_the_first_points_of_the_whole_run(tmp_path):
+    """A viewer sees the run as it goes (``partial``): every partial run holds exactly the first
+    points of the whole run (same numbers), says it is not complete and how long the whole run
+    is, and its own NH3 account closes over the part done (common practice: a conservation
+    check holds on any prefix of a time-marching run)."""
+    from aftertreat.cyclecase import load_run_case
+    from aftertreat.transient_run import run_transient
+    case = load_run_case(_trace_case(tmp_path, dosing={"control": "storage"}))
+    parts = []
+    whole = run_transient(case, partial=parts.append, partial_every_s=0.0)
+    assert len(parts) == len(whole.result.t_s) - 2        # after every interval but the last
+    for p in parts[::7]:
+        n = len(p.result.t_s)
+        assert not p.complete and p.planned_s == 40.0
+        assert len(p.timeline.t_s) == len(p.anr_cmd) == n
+        for k in ("outlet_F", "stored_nh3_mol", "solid_T_mean_K", "inlet_mol"):
+            np.testing.assert_array_equal(getattr(p.result, k), getattr(whole.result, k)[:n])
+        s = p.summary()
+        assert s["duration_s"] == n - 1.0
+        acc = s["NH3_account_mol"]
+        assert abs(acc["imbalance_mol"]) <= 1e-4 * acc["in_mol"]
+    assert whole.complete and whole.head() is whole

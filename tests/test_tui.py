@@ -172,14 +172,104 @@ def test_trace_case_time_cursor(tmp_path):
             assert "t = 1 s" in _text(app, "#profile-head")
             assert "time [min]" in _text(app, "#plot-species")
             assert "Limits over the run" in _text(app, "#limits")
-            # keys and tabs fit the case kind: no mode keys, no what-if, sizing or bricks
+            # keys and tabs fit the case kind: no mode keys, no sizing or bricks; what-ifs
             assert app.check_action("next_mode", ()) is False
+            assert app.check_action("size", ()) is False
             assert app.check_action("play", ()) is True
+            assert app.check_action("run_whatif", ()) is True
             from textual.widgets import TabbedContent
             tabs = app.query_one("#tabs", TabbedContent)
+            await pilot.press("4")
+            await pilot.pause()
+            assert tabs.active != "sizing" and "trace case" in _text(app, "#status")
             await pilot.press("3")
             await pilot.pause()
-            assert tabs.active != "whatif" and "trace case" in _text(app, "#status")
+            assert tabs.active == "whatif"
+    asyncio.run(go())
+
+
+def test_trace_timeline_fills_in_and_the_cursor_works_meanwhile(tmp_path, monkeypatch):
+    """The trace is shown while it runs: the first part reaches the screen before the run
+    ends (head line "RUNNING", limits "so far"), the time cursor steps on it, and the whole
+    run replaces it at the end with the cursor where the user left it."""
+    from test_transient_case import _trace_case
+    monkeypatch.setattr(Session, "PARTIAL_EVERY_S", 0.0)
+    shown = []
+
+    async def go():
+        app = CycleApp(_trace_case(tmp_path))
+        original = app._show_partial
+
+        def spy(run, gen):
+            original(run, gen)
+            shown.append((run.complete, len(run.result.t_s), _text(app, "#totals"),
+                          _text(app, "#limits")))
+            if len(shown) == 5:             # a key press while the rest is computing
+                app.action_step(3)
+                shown.append(("cursor", _text(app, "#profile-head")))
+        app._show_partial = spy
+        async with app.run_test(size=(150, 45)) as pilot:
+            await _settle(app, pilot)
+            assert shown[-1][0] is True and app.trace_view is app.session.transient
+            assert "t = 3 s" in _text(app, "#profile-head")
+    asyncio.run(go())
+    parts = [x for x in shown if x[0] is False]
+    assert len(parts) >= 5 and parts[0][1] < parts[-1][1] < 41
+    assert "RUNNING" in parts[0][2] and "so far" in parts[0][3]
+    assert ("cursor", ) == shown[5][:1] and "t = 3 s" in shown[5][1]
+
+
+def test_trace_whatif_reruns_the_trace_and_compares(tmp_path):
+    """A what-if on a trace case (a longer SCR 1 and storage-controlled dosing with a slower
+    response) re-runs the whole trace in the background and compares the run figures with the
+    case's; a what-if typed while the trace still runs supersedes that run; b goes back to the
+    case's run without solving again; the report of the trace exports."""
+    from test_transient_case import _trace_case
+    from textual.widgets import Input, Select
+
+    async def go():
+        app = CycleApp(_trace_case(tmp_path))
+        async with app.run_test(size=(160, 50)) as pilot:
+            await _settle(app, pilot)
+            base = app.session.transient
+            assert app.session.base_transient is base
+            await pilot.press("3")
+            assert not app.query_one("#wi-dT", Input).display     # the trace has its own T
+            app.query_one("#wi-brick", Select).value = "SCR 1"
+            app.query_one("#wi-length", Input).value = "300"
+            app.query_one("#wi-control", Select).value = "storage"
+            app.query_one("#wi-response", Input).value = "60"
+            app.query_one("#wi-length", Input).focus()
+            await pilot.press("enter")
+            await _settle(app, pilot)
+            s = app.session
+            run = s.transient
+            assert run is not base and run.complete and app.trace_view is run
+            assert run.train.bricks[0].length == pytest.approx(0.300)
+            assert s.case.transient["control"] == "storage"
+            assert s.case.transient["response_s"] == 60.0
+            cmp = _text(app, "#wi-compare")
+            assert "NOx over the run [g/kWh]" in cmp and "->" in cmp
+            assert f"{base.summary()['NOx_g_kWh']:.3g} -> {run.summary()['NOx_g_kWh']:.3g}" \
+                in cmp
+            # a second what-if while a solve runs: the newer one wins, the older shows nothing
+            app.query_one("#wi-anrmax", Input).value = "1.1"
+            app.action_run_whatif()
+            app.query_one("#wi-length", Input).value = "350"
+            app.action_run_whatif()
+            await _settle(app, pilot)
+            assert app.trace_view.train.bricks[0].length == pytest.approx(0.350)
+            assert app.trace_view.case.transient["ANR_max"] == 1.1
+            assert app.trace_view is app.session.transient and not app.busy
+            # back to the case: its run again, nothing solved (Escape leaves the field first)
+            await pilot.press("escape", "b")
+            await pilot.pause()
+            assert app.trace_view is base and not app.busy
+            # the trace report exports, with its case as run
+            folder = tmp_path / "trace_report"
+            app.session.export_report(folder)
+            names = {p.name for p in folder.iterdir()}
+            assert {"transient.csv", "summary.json", "case_as_run.toml", "SAFETY.txt"} <= names
     asyncio.run(go())
 
 
@@ -267,6 +357,23 @@ def test_enter_in_a_field_runs_the_whatif_and_escape_leaves_it(case_copy):
             await pilot.press("4")
             await pilot.pause()
             assert app.query_one("TabbedContent").active == "sizing"
+    asyncio.run(walk())
+
+
+def test_letters_in_a_number_field_are_commands(case_copy):
+    """Tab 3 puts the cursor in the length field, so digits typed at once land there; r
+    typed in the field runs the what-if instead of being typed into it (no "900r")."""
+    async def walk():
+        app = CycleApp(case_copy)
+        async with app.run_test(size=(160, 50)) as pilot:
+            await _settle(app, pilot)
+            await pilot.press("3", "9", "0", "0")
+            assert app.focused is app.query_one("#wi-length")
+            assert app.query_one("#wi-length").value == "900"
+            await pilot.press("r")
+            await _settle(app, pilot)
+            assert app.session.case.train.bricks[0].length == pytest.approx(0.9)
+            assert app.query_one("#wi-length").value == ""       # the form is cleared
     asyncio.run(walk())
 
 

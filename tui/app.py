@@ -22,6 +22,7 @@ from textual.widgets import (Button, DataTable, Footer, Input, Label, Select, St
 
 from aftertreat.errors import InputError
 from aftertreat.output import SAFETY_NOTE
+from aftertreat.transient_run import CONTROLS
 
 from .session import Session
 from aftertreat.units import ZERO_C_K
@@ -48,24 +49,26 @@ KEYS = [
     ("u", "use_sized", "use the sized design as the what-if (then compare or save it)"),
     ("a", "save_as", "save the edited case under a new name"),
     ("e", "export", "export the report (aftertreat run --report)"),
-    ("space", "play", "trace: play or pause the time cursor"),
+    ("space", "play", "trace: play or pause the time cursor (it works while the run goes on)"),
     ("right_square_bracket", "step(1)", "trace: one sample forward"),
     ("left_square_bracket", "step(-1)", "trace: one sample back"),
     ("escape", "leave_field", "leave a text field (Tab / shift+Tab move between fields, "
-               "Enter in a field runs the what-if)"),
+               "Enter in a field runs the what-if; letters are commands even in a number field, "
+               "digits 1-5 type into it)"),
     ("question_mark", "help", "this help"),
     ("q", "quit", "quit"),
 ]
 class _Cancelled(Exception):
-    """Raised from the sizing's progress callback when the user cancels it."""
+    """Raised from a worker's progress callback when the user cancels it (sizing) or a newer
+    solve supersedes it."""
 
 
-#: what a trace case cannot do, and what only a trace case does
-_STEADY_TABS = ("bricks", "whatif", "sizing")
-_STEADY_ACTIONS = {"next_mode", "previous_mode", "run_whatif", "size", "use_sized", "save_as",
-                   "cancel_sizing"}
+#: what a trace case cannot do (it has no modes to size or look along), and what only a
+#: trace case does
+_STEADY_TABS = ("bricks", "sizing")
+_STEADY_ACTIONS = {"next_mode", "previous_mode", "size", "use_sized", "cancel_sizing"}
 _TRACE_ACTIONS = {"play", "step"}
-_SHOWN = {"n", "p", "r", "s", "a", "e", "question_mark", "q"}
+_SHOWN = {"n", "p", "r", "s", "a", "e", "space", "question_mark", "q"}
 
 
 class HelpScreen(ModalScreen):
@@ -136,6 +139,20 @@ class SaveScreen(ModalScreen):
         self.dismiss(None)
 
 
+class NumberField(Input):
+    """A text field for a number: digits, sign and decimal point go into it; any other key
+    (r, b, s, q ...) is a command as if no field were focused, so a single-key command never
+    types into the form."""
+    NUMBER_CHARACTERS = frozenset("0123456789.-+")
+
+    def check_consume_key(self, key: str, character: str | None) -> bool:
+        return character is not None and character in self.NUMBER_CHARACTERS
+
+    async def _on_key(self, event) -> None:
+        if event.is_printable and event.character not in self.NUMBER_CHARACTERS:
+            event.prevent_default()          # not typed: the key goes on to the app's keys
+
+
 def _chosen(select: Select):
     """A Select's value, or None while it shows its prompt."""
     return None if select.is_blank() else select.value
@@ -152,6 +169,12 @@ COMPARED = (("NOx_g_kWh", "cycle NOx [g/kWh]"), ("N2O_g_kWh", "cycle N2O [g/kWh]
             ("NH3_g_kWh", "cycle NH3 [g/kWh]"),
             ("NH3_slip_ppmvd_max", "highest NH3 slip [ppmvd, actual O2]"),
             ("GHG_CO2e_g_kWh", "CO2 + N2O as CO2e [g/kWh]"))
+#: the figures of a trace run a what-if is compared on
+COMPARED_TRACE = (("NOx_g_kWh", "NOx over the run [g/kWh]"),
+                  ("N2O_g_kWh", "N2O over the run [g/kWh]"),
+                  ("NH3_g_kWh", "NH3 over the run [g/kWh]"),
+                  ("NH3_slip_ppmvd_peak", "highest NH3 slip [ppmvd, actual O2]"),
+                  ("NH3_slip_ppmvd_mean", "mean NH3 slip [ppmvd, actual O2]"))
 
 
 def compliance_text(res, margin: float, width: int) -> Text:
@@ -172,8 +195,8 @@ def compliance_text(res, margin: float, width: int) -> Text:
         label = f" {100 * q:5.0f} %  {r.mode or 'cycle':>6s}  {r.row_name}"
         out.append(label[: max(width - 11, 10)] + "\n", style=style if q > 1 else "")
     if skipped:
-        note = (f"({skipped} per-mode checks do not apply: idle, exempt or below a load "
-                "gate)")
+        note = (f"({skipped} per-mode check{'s do' if skipped > 1 else ' does'} not apply: "
+                "idle, exempt or below a load gate)")
         out.append(note[: max(width, 10)] + "\n", style="dim")
     out.append("PASSES every limit" if res.passed else "DOES NOT PASS",
                style="bold green" if res.passed else "bold red")
@@ -226,6 +249,8 @@ class CycleApp(App):
         self.playing = False
         self.busy = False
         self._cancel_sizing = False
+        self._generation = 0                  # counts solves: a newer one supersedes the rest
+        self.trace_view = None                # the TransientRun on screen (partial or whole)
 
     # -- layout ------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -252,19 +277,26 @@ class CycleApp(App):
                         yield Label(Text("Length [mm]   Diameter [mm]   Cell density [cpsi]   "
                                          "Activity [-]"))
                         with Horizontal(classes="row"):
-                            yield Input(placeholder="length mm", id="wi-length")
-                            yield Input(placeholder="diameter mm", id="wi-diameter")
-                            yield Input(placeholder="cpsi", id="wi-cpsi")
-                            yield Input(placeholder="activity 0..2", id="wi-activity")
+                            yield NumberField(placeholder="length mm", id="wi-length")
+                            yield NumberField(placeholder="diameter mm", id="wi-diameter")
+                            yield NumberField(placeholder="cpsi", id="wi-cpsi")
+                            yield NumberField(placeholder="activity 0..2", id="wi-activity")
                         yield Label(Text("Catalyst"))
                         yield Select([], id="wi-catalyst", prompt="(unchanged)")
                         yield Label(Text("Dosing method, ANR (every mode), inlet temperature "
-                                         "shift [K]"))
+                                         "shift [K]"), id="wi-dosing-label")
                         with Horizontal(classes="row"):
                             yield Select([("none", "none"), ("NH3", "NH3"), ("urea", "urea")],
                                          id="wi-dosing", prompt="(unchanged)")
-                            yield Input(placeholder="ANR", id="wi-anr")
-                            yield Input(placeholder="dT K", id="wi-dT")
+                            yield NumberField(placeholder="ANR", id="wi-anr")
+                            yield NumberField(placeholder="dT K", id="wi-dT")
+                        yield Label(Text("Dosing control over the trace, response time [s], "
+                                         "highest ANR [-]"), id="wi-trace-label")
+                        with Horizontal(classes="row", id="wi-trace-row"):
+                            yield Select([(c, c) for c in CONTROLS], id="wi-control",
+                                         prompt="(unchanged)")
+                            yield NumberField(placeholder="response s", id="wi-response")
+                            yield NumberField(placeholder="ANR max", id="wi-anrmax")
                         with Horizontal(classes="row"):
                             yield Button(Text("Run what-if (r)"), id="wi-run", variant="primary")
                             yield Button(Text("Back to the case (b)"), id="wi-reset")
@@ -307,32 +339,71 @@ class CycleApp(App):
             tabs = self.query_one("#tabs", TabbedContent)
             for name in _STEADY_TABS:            # tabs that work on modes only
                 tabs.hide_tab(name)
+            self.query_one("#wi-dT", Input).display = False   # a trace has its own T column
+            self.query_one("#wi-dosing-label", Label).update(Text(
+                "Dosing method, ANR (with control \"fixed\")"))
+        else:
+            for wid in ("#wi-trace-label", "#wi-trace-row"):
+                self.query_one(wid).display = False
         self.refresh_bindings()
         self.compute()
 
     # -- workers -----------------------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="solve")
     def compute(self) -> None:
-        """Solve the current case in a worker thread (steady modes, or the trace)."""
-        s = self.session
+        """Solve the current case in a worker thread (steady modes, or the trace). A new solve
+        supersedes one still running (a what-if made while the trace runs): the old one stops
+        at its next step and shows nothing more."""
+        self._generation += 1
         self.busy = True
+        self._solve(self._generation)
+
+    @work(thread=True, exclusive=True, group="solve")
+    def _solve(self, gen: int) -> None:
+        s = self.session
+        current = lambda: gen == self._generation      # noqa: E731
+
+        def check():
+            if not current():
+                raise _Cancelled
         try:
             if s.is_trace:
-                self.call_from_thread(self._status, "running the trace (this takes a while)...")
-                s.run_transient(progress=lambda i, n: self.call_from_thread(
-                    self._status, f"trace step {i}/{n - 1}") if i % 100 == 0 else None)
+                self.call_from_thread(self._status, "running the trace: the timeline fills in "
+                                      "as it goes; the cursor works meanwhile")
+
+                def progress(i, n):
+                    check()
+                    if i % 100 == 0:
+                        self.call_from_thread(self._status, f"running the trace: step "
+                                              f"{i}/{n - 1}" + (" (what-if)" if s.edited else ""))
+
+                def partial(run):
+                    check()
+                    self.call_from_thread(self._show_partial, run, gen)
+                run = s.run_transient(progress=progress, partial=partial)
+                check()
+                self.call_from_thread(self._show_partial, run, gen)
             else:
                 self.call_from_thread(self._status, "solving...")
-                s.run(progress=lambda i, n, name: self.call_from_thread(
-                    self._status, f"solving mode {i + 1}/{n}: {name}"))
-            self.call_from_thread(self._show_all)
+
+                def progress(i, n, name):
+                    check()
+                    self.call_from_thread(self._status, f"solving mode {i + 1}/{n}: {name}")
+                s.run(progress=progress)
+                check()
+                self.call_from_thread(self._show_all)
             self.call_from_thread(self._status, "ready" + (" (what-if)" if s.edited else ""))
+        except _Cancelled:
+            return
         except InputError as exc:
-            self.call_from_thread(self._status, f"{exc}", True)
+            if current():
+                self.call_from_thread(self._status, f"{exc}", True)
         except Exception as exc:        # noqa: BLE001 - a failure of ours: shown, never a crash
-            self.call_from_thread(self._status, f"failure: {type(exc).__name__}: {exc}", True)
+            if current():
+                self.call_from_thread(self._status, f"failure: {type(exc).__name__}: {exc}",
+                                      True)
         finally:
-            self.busy = False
+            if current():
+                self.busy = False
 
     @work(thread=True, exclusive=True, group="size")
     def _size_worker(self) -> None:
@@ -485,9 +556,18 @@ class CycleApp(App):
             x_label="distance along the train [mm]", y_label="theta [-]", y_min=0.0,
             markers=marks[:-1]))
 
+    def _show_partial(self, run, gen: int) -> None:
+        """Show a trace run, whole or the part done so far, unless a newer solve started."""
+        if gen != self._generation:
+            return
+        self.trace_view = run
+        self._show_trace()
+        self._show_edits()
+
     def _show_trace(self) -> None:
-        s = self.session
-        run = s.transient
+        run = self.trace_view
+        if run is None:
+            return
         df = run.table()
         t = self.query_one("#modes", DataTable)
         t.clear()
@@ -498,13 +578,18 @@ class CycleApp(App):
                       f"{r.NOx_out_ppmvd:.1f}", f"{r.NH3_out_ppmvd:.1f}",
                       f"{r.N2O_out_ppmvd:.1f}")
         sm = run.summary()
-        lines = [f"Trace {sm['source']}: {sm['duration_s']:.0f} s, work {sm['work_kWh']:.1f} kWh",
+        whole = run.planned_s
+        head = (f"Trace {sm['source']}: {sm['duration_s']:.0f} s, work {sm['work_kWh']:.1f} kWh"
+                if run.complete else
+                f"Trace {sm['source']}: RUNNING, {sm['duration_s']:.0f} of {whole:.0f} s so far "
+                "(figures over the part done)")
+        lines = [head,
                  f"NOx {_f(sm['NOx_g_kWh'])} g/kWh, N2O {_f(sm['N2O_g_kWh'])} g/kWh",
                  f"NH3 slip peak {sm['NH3_slip_ppmvd_peak']:.1f}, mean "
                  f"{sm['NH3_slip_ppmvd_mean']:.2f} ppmvd",
-                 f"solved {sm['real_time_factor']:.0f} x faster than real time"]
+                 f"solved {_f(sm['real_time_factor'], '.0f')} x faster than real time"]
         self.query_one("#totals", Static).update(Text("\n".join(lines)))
-        lim = Text("Limits over the run\n")
+        lim = Text("Limits over the run" + ("" if run.complete else " so far") + "\n")
         for r in run.limit_checks():
             ok = r.passed
             lim.append(f"{'pass' if ok else 'FAIL'} ", style="green" if ok else "bold red")
@@ -517,7 +602,7 @@ class CycleApp(App):
 
     def _show_cursor(self) -> None:
         from .plot import line_chart
-        run = self.session.transient
+        run = self.trace_view
         if run is None:
             return
         df = run.table()
@@ -562,6 +647,9 @@ class CycleApp(App):
         text = ("Edits: " + "; ".join(s.whatif.assignments)) if s.edited else \
             "No edits: this is the case as loaded."
         self.query_one("#wi-edits", Static).update(Text(text))
+        if s.is_trace:
+            self.query_one("#wi-compare", Static).update(self._trace_compare())
+            return
         if s.edited and s.base_result is not None and s.result is not None:
             c, b = s.result.cycle, s.base_result.cycle
             cmp = [f"{label}: {_f(b[k])} -> {_f(c[k])}" for k, label in COMPARED]
@@ -572,6 +660,25 @@ class CycleApp(App):
                                                               + "\n".join(cmp)))
         else:
             self.query_one("#wi-compare", Static).update("")
+
+    def _trace_compare(self) -> Text:
+        """The trace what-if against the trace as loaded (both over the whole run; a what-if
+        still running is compared over the part done so far, and says so)."""
+        s, run, base = self.session, self.trace_view, self.session.base_transient
+        if s.edited and base is None:
+            return Text("No comparison: the what-if started before the case's own run had "
+                        "finished, and stopped it (b goes back to the case and runs it).")
+        if not s.edited or run is None or run is base:
+            return Text("")
+        a, b = base.summary(), run.summary()
+        head = "What-if against the case, over the run" + (
+            "" if run.complete else f" (what-if RUNNING: its first {b['duration_s']:.0f} s "
+            f"against the case's whole {a['duration_s']:.0f} s)") + ":"
+        rows = [f"{label}: {_f(a[k])} -> {_f(b[k])}" for k, label in COMPARED_TRACE]
+        ok = {True: "passes every limit", False: "does not pass"}
+        passed = lambda r: all(c.passed for c in r.limit_checks()) and r.result.all_converged  # noqa: E731
+        rows.append(f"limits: {ok[passed(base)]} -> {ok[passed(run)]}")
+        return Text(head + "\n" + "\n".join(rows))
 
     def _show_sizing(self, res) -> None:
         lines = [("feasible" if res.feasible else "NOT FEASIBLE")
@@ -643,6 +750,8 @@ class CycleApp(App):
                          "cases with a cycle")
             return
         self.query_one("#tabs", TabbedContent).active = name
+        if name == "whatif":                 # typing goes straight into the form
+            self.set_focus(self.query_one("#wi-length", NumberField))
 
     def check_action(self, action: str, parameters) -> bool | None:
         """Keys that fit the case kind: mode keys for a cycle, time keys for a trace (the
@@ -660,13 +769,13 @@ class CycleApp(App):
         self.push_screen(HelpScreen())
 
     def action_step(self, d: int) -> None:
-        if self.session is None or self.session.transient is None:
+        if self.session is None or self.trace_view is None:
             return
         self.cursor += int(d)
         self._show_cursor()
 
     def action_play(self) -> None:
-        if self.session is None or self.session.transient is None:
+        if self.session is None or self.trace_view is None:
             self._status("play/pause steps a trace's time cursor; this case has modes (n/p)")
             return
         self.playing = not self.playing
@@ -706,12 +815,20 @@ class CycleApp(App):
         anr = self._number("#wi-anr", 0.0, 3.0, "ANR")
         if anr is not None:
             out.append(f"dosing.ANR={anr:g}")
+        if s.is_trace:
+            control = _chosen(self.query_one("#wi-control", Select))
+            out += s.dosing_control_assignments(
+                control=None if control is None else str(control),
+                response_s=self._number("#wi-response", 1.0, 1e4, "response time [s]"),
+                ANR_max=self._number("#wi-anrmax", 0.0, 3.0, "highest ANR"))
+            return out
         dT = self._number("#wi-dT", -300.0, 300.0, "temperature shift [K]")
         if dT:
             out += s.inlet_temperature_assignment(dT)
         return out
 
-    @on(Input.Submitted, "#wi-length, #wi-diameter, #wi-cpsi, #wi-activity, #wi-anr, #wi-dT")
+    @on(Input.Submitted, "#wi-length, #wi-diameter, #wi-cpsi, #wi-activity, #wi-anr, #wi-dT, "
+                         "#wi-response, #wi-anrmax")
     def _submitted(self) -> None:
         """Enter in a what-if field runs the what-if."""
         self.action_run_whatif()
@@ -724,9 +841,6 @@ class CycleApp(App):
     def action_run_whatif(self) -> None:
         s = self.session
         if s is None:
-            return
-        if s.is_trace:
-            self._status("what-ifs work on cases with modes; a trace runs as it is")
             return
         try:
             a = self._form_assignments()
@@ -745,19 +859,29 @@ class CycleApp(App):
 
     def _clear_form(self) -> None:
         for wid in ("#wi-length", "#wi-diameter", "#wi-cpsi", "#wi-activity", "#wi-anr",
-                    "#wi-dT"):
+                    "#wi-dT", "#wi-response", "#wi-anrmax"):
             self.query_one(wid, Input).value = ""
 
     @on(Button.Pressed, "#wi-reset")
     def action_reset(self) -> None:
         if self.session is None:
             return
-        self.session.reset()
+        s = self.session
+        was_running = s.is_trace and self.trace_view is not None and not self.trace_view.complete
+        s.reset()
         self._clear_form()
-        self._show_edits()
         self._status("back to the case as loaded")
-        if self.session.result is not None and not self.session.is_trace:
+        if s.is_trace:
+            if s.base_transient is not None:
+                self._generation += 1          # a what-if still running is dropped
+                self.busy = False
+                self.trace_view = s.base_transient
+                self._show_trace()
+            elif was_running or self.trace_view is None:
+                self.compute()                 # the baseline itself had not finished
+        elif s.result is not None:
             self._show_all()
+        self._show_edits()
 
     @on(Button.Pressed, "#size-run")
     def action_size(self) -> None:

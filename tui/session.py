@@ -36,8 +36,18 @@ def backup_name(path: Path) -> Path:
     return cand
 
 
+def _sets(table: str, **values) -> list[str]:
+    """``table.key=value`` assignments of the values given (None: left out); numbers in
+    short form, text quoted."""
+    return [f'{table}.{k}="{v}"' if isinstance(v, str) else f"{table}.{k}={float(v):g}"
+            for k, v in values.items() if v is not None]
+
+
 class Session:
     """A case file, its baseline result and a what-if being edited."""
+
+    #: how often a trace run shows the part done so far [s of wall time]
+    PARTIAL_EVERY_S = 2.0
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
@@ -48,7 +58,8 @@ class Session:
         self.case = self.base_case
         self.base_result = None          # CycleResult of the case as loaded
         self.result = None               # CycleResult of the current what-if (or the baseline)
-        self.transient = None            # TransientRun of a trace case
+        self.transient = None            # TransientRun of a trace case (the current one)
+        self.base_transient = None       # TransientRun of the trace case as loaded
         self.sizing = None
         self.saved = 0                   # edits already saved to a file (count)
 
@@ -110,6 +121,7 @@ class Session:
         self.whatif = WhatIf()
         self.saved = 0
         self.result = self.base_result
+        self.transient = self.base_transient
 
     def brick_assignments(self, name: str, *, length_mm=None, diameter_mm=None, cpsi=None,
                           catalyst=None, activity=None) -> list[str]:
@@ -127,13 +139,7 @@ class Session:
                 out.append(f"brick.{name}.{key}_mm={float(v):g}")
             else:
                 out.append(f'brick.{name}.{key}="{float(v):g} mm"')
-        if cpsi is not None:
-            out.append(f"brick.{name}.cpsi={float(cpsi):g}")
-        if catalyst is not None:
-            out.append(f'brick.{name}.catalyst="{catalyst}"')
-        if activity is not None:
-            out.append(f"brick.{name}.activity={float(activity):g}")
-        return out
+        return out + _sets(f"brick.{name}", cpsi=cpsi, catalyst=catalyst, activity=activity)
 
     def inlet_temperature_assignment(self, delta_K: float) -> list[str]:
         """Assignments that shift every mode's engine-out temperature by ``delta_K``."""
@@ -157,10 +163,22 @@ class Session:
         self.result = res
         return res
 
-    def run_transient(self, progress=None):
+    def run_transient(self, progress=None, partial=None):
+        """Run the current trace case (the first run is the baseline); ``partial(run)`` sees
+        the points done so far every few seconds (:func:`aftertreat.transient_run.run_transient`)."""
         from aftertreat.transient_run import run_transient
-        self.transient = run_transient(self.case, progress=progress)
-        return self.transient
+        run = run_transient(self.case, progress=progress, partial=partial,
+                            partial_every_s=self.PARTIAL_EVERY_S)
+        if self.base_transient is None and not self.edited:
+            self.base_transient = run
+        self.transient = run
+        return run
+
+    def dosing_control_assignments(self, *, control=None, response_s=None,
+                                   ANR_max=None) -> list[str]:
+        """Assignments for the dosing control of a transient run ([transient.dosing])."""
+        return _sets("transient.dosing", control=control, response_s=response_s,
+                     ANR_max=ANR_max)
 
     def size(self, progress=None):
         from aftertreat.sizing import size_case
@@ -199,13 +217,28 @@ class Session:
         rules): whole or not at all, and never into a folder that already holds files
         (InputError before anything is written)."""
         from aftertreat.report import StagedFolder, case_as_run_text, check_report_folder
-        from aftertreat.report import write_report
-        if self.result is None:
-            raise InputError("nothing solved yet", key="report")
+        from aftertreat.report import write_report, write_transient_report
+        how = "terminal UI" + (", edits: " + "; ".join(self.whatif.assignments)
+                               if self.whatif.assignments else "")
+        if self.is_trace:
+            run = self.transient
+            if run is None or not run.complete:
+                raise InputError("the trace is still running: export when it is done",
+                                 key="report")
+            obj = run.run_json()
+            obj["transient"] = run.summary()
+
+            def write(tmp):
+                write_transient_report(run, obj, tmp, case_text=case_as_run_text(run.case,
+                                                                                 how=how))
+        else:
+            if self.result is None:
+                raise InputError("nothing solved yet", key="report")
+
+            def write(tmp):
+                write_report(self.result, tmp, case_text=case_as_run_text(self.result.case,
+                                                                          how=how))
         check_report_folder(folder)
         with StagedFolder(folder) as tmp:
-            write_report(self.result, tmp, case_text=case_as_run_text(
-                self.result.case, how="terminal UI" + (
-                    ", edits: " + "; ".join(self.whatif.assignments)
-                    if self.whatif.assignments else "")))
+            write(tmp)
         return Path(folder)
