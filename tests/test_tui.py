@@ -265,9 +265,15 @@ def test_trace_whatif_reruns_the_trace_and_compares(tmp_path):
             await pilot.press("escape", "b")
             await pilot.pause()
             assert app.trace_view is base and not app.busy
-            # the trace report exports, with its case as run
+            # the trace report exports (e, then the folder asked for), with its case as run
             folder = tmp_path / "trace_report"
-            app.session.export_report(folder)
+            await pilot.press("e")
+            await pilot.pause()
+            from textual.widgets import Input as _Input
+            app.screen.query_one("#save-name", _Input).value = str(folder)
+            await pilot.press("enter")
+            await pilot.pause()
+            assert "report written" in _text(app, "#status")
             names = {p.name for p in folder.iterdir()}
             assert {"transient.csv", "summary.json", "case_as_run.toml", "SAFETY.txt"} <= names
     asyncio.run(go())

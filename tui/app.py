@@ -947,7 +947,7 @@ class CycleApp(App):
 
     def action_export(self) -> None:
         s = self.session
-        if s is None or s.result is None:
+        if s is None or (s.transient if s.is_trace else s.result) is None:
             self._status("nothing solved yet")
             return
         base = self.case_path.with_name(f"{self.case_path.stem}_report")
