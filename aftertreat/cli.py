@@ -4,6 +4,9 @@ Subcommands:
     aftertreat run CASE [--set KEY=VALUE ...] [--json] [--report DIR]   evaluate a duty cycle
     aftertreat size CASE [--set KEY=VALUE ...] [--json] [--report DIR]  size SCR and slip catalyst
     aftertreat point CASE [--set KEY=VALUE ...] [--json]   solve the train at the case's exhaust
+    aftertreat study CASE [--set ...] [--out DIR] [--resume] [--scheduler ADDRESS] [--workers N]
+                                                            sweeps and Monte Carlo on Dask
+    aftertreat fit SPEC [--out FILE] [--report DIR] [--json]   calibrate a catalyst to lab data
     aftertreat catalysts [KEY]                              list catalysts, or one's provenance
     aftertreat sources CASE                                 the sources behind a case's numbers
 
@@ -13,7 +16,9 @@ Exit codes: 0 computed (whether or not anything passes), 2 bad input, 1 a failur
 from __future__ import annotations
 
 import argparse
+import math
 import sys
+from pathlib import Path
 
 from .units import NORMAL_CONDITIONS, ZERO_C_K
 
@@ -67,6 +72,34 @@ def _build_parser() -> argparse.ArgumentParser:
                     "report of the sized design into DIR")
     sz.add_argument("--move-old", action="store_true", help="when the --report folder exists "
                     "and is not empty, move it aside (renamed with the time) instead of refusing")
+    sz.add_argument("--confidence", type=_probability, metavar="P",
+                    help="also find the smallest buildable train whose probability of "
+                         "compliance under the case's [study] uncertainties is at least P "
+                         "(e.g. 0.95); runs on Dask like 'aftertreat study'")
+    sz.add_argument("--workers", type=_workers, metavar="N",
+                    help="with --confidence: local Dask workers (default one per core; 0 runs "
+                         "in this process without Dask)")
+    sz.add_argument("--scheduler", metavar="ADDRESS",
+                    help="with --confidence: the address of an existing Dask scheduler")
+    st = sub.add_parser("study", help="run the case's [study]: sweeps and Monte Carlo over "
+                        "uncertainties, on Dask; probability of compliance and sensitivity")
+    st.add_argument("case", help="duty-cycle case file (TOML) with a [study] table")
+    st.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a case value by its dotted path, e.g. study.samples=500 "
+                         "(repeatable)")
+    st.add_argument("--out", metavar="DIR", help="the study folder: Parquet dataset, summary, "
+                    "figures (default: <case name>_study in the current folder)")
+    st.add_argument("--resume", action="store_true", help="continue the study in --out: "
+                    "compute only the chunks that are missing (same case, seed and items)")
+    st.add_argument("--scheduler", metavar="ADDRESS", help="use an existing Dask cluster, e.g. "
+                    "tcp://10.0.0.5:8786 (default: a local cluster, one worker per core, on "
+                    "127.0.0.1)")
+    st.add_argument("--workers", type=_workers, metavar="N", help="local Dask workers (default "
+                    "one per core); 0 runs in this process without Dask")
+    st.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    st.add_argument("--strict", action="store_true",
+                    help="an inlet temperature outside a catalyst's validity range is an error "
+                         "(default: a warning, and the rates are extrapolated)")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
     pt.add_argument("case", help="case file (TOML)")
     pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
@@ -76,6 +109,15 @@ def _build_parser() -> argparse.ArgumentParser:
     pt.add_argument("--strict", action="store_true",
                     help="an inlet temperature outside a catalyst's validity range is an error "
                          "(default: a warning, and the rates are extrapolated)")
+    fi = sub.add_parser("fit", help="calibrate a catalyst's rate parameters to lab-reactor "
+                        "data: a new catalyst file with 95 %% intervals")
+    fi.add_argument("spec", help="fit spec (TOML) with catalyst, [reactor], [[experiment]] and "
+                    "[[parameter]] (docs/fitting.md)")
+    fi.add_argument("--out", metavar="FILE", help="the new catalyst file (default: the spec's "
+                    "output); never overwritten")
+    fi.add_argument("--report", metavar="DIR", help="the fit folder: tables, correlation, "
+                    "figures (default: <new file>_fit beside it)")
+    fi.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
     so = sub.add_parser("sources", help="list the sources behind a case's numbers: catalysts, "
                         "correlations, cycle and limits")
     so.add_argument("case", help="case file (TOML)")
@@ -86,6 +128,23 @@ def _build_parser() -> argparse.ArgumentParser:
                         "what-ifs, sizing")
     tu.add_argument("case", help="duty-cycle case file (TOML)")
     return p
+
+
+def _probability(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = float("nan")
+    if not 0.0 < v < 1.0:
+        raise argparse.ArgumentTypeError(f"expected a probability in (0, 1), e.g. 0.95; got "
+                                         f"{text!r}")
+    return v
+
+
+def _workers(text: str) -> int:
+    if not text.isdigit():
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 0; got {text!r}")
+    return int(text)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -101,10 +160,14 @@ def main(argv: list[str] | None = None) -> int:
             return _run(args)
         if args.command == "size":
             return _size(args)
+        if args.command == "study":
+            return _study(args)
         if args.command == "point":
             return _point(args)
         if args.command == "catalysts":
             return _catalysts(args)
+        if args.command == "fit":
+            return _fit(args)
         if args.command == "sources":
             return _sources(args)
         if args.command == "tui":
@@ -268,18 +331,41 @@ def _print_transient(trun, s: dict, safety: str, report) -> None:
 
 def _size(args) -> int:
     from .cyclecase import load_run_case
+    from .errors import InputError
     from .sizing import size_case
+    if args.confidence is None:
+        for flag_, v in (("--workers", args.workers), ("--scheduler", args.scheduler)):
+            if v is not None:
+                raise InputError("only with --confidence", key=flag_, value=v)
     case = load_run_case(args.case, args.set)
+    if args.confidence is not None and (case.study is None or not (
+            case.study.uncertain or case.study.correlated)):
+        raise InputError("--confidence needs the case's uncertainties: a [study] table with "
+                         "[[study.uncertain]] or [[study.correlated]] items (docs/study.md)",
+                         key="study", file=case.file)
     res = _with_status(args, "sizing", lambda p: size_case(
         case, progress=p, curves=bool(args.report or args.json)))
     from .report import write_size_report
-    _emit(args, res, write_size_report, _print_size)
+    conf = None
+    if args.confidence is not None:
+        from .study_sizing import size_to_confidence
+        conf = _with_status(args, f"sizing to P >= {args.confidence:g}", lambda p:
+                            size_to_confidence(case, args.confidence, res, workers=args.workers,
+                                               scheduler=args.scheduler, progress=p))
+    if conf is not None and args.json:
+        from .output import to_json
+        if args.report:
+            _write_report(args, lambda folder: write_size_report(res, folder))
+        print(to_json(res.to_json() | {"confidence": conf.to_json()}))
+    else:
+        _emit(args, res, write_size_report,
+              lambda r, safety, rep: _print_size(r, safety, rep, conf))
     if not res.run.converged:
         return _fail(1, "the solver did not converge at the sized design; its numbers are flagged")
     return 0
 
 
-def _print_size(res, safety: str, report: str | None) -> None:
+def _print_size(res, safety: str, report: str | None, conf=None) -> None:
     from rich import box
     from rich.console import Console
     from rich.table import Table
@@ -340,9 +426,50 @@ def _print_size(res, safety: str, report: str | None) -> None:
     _print_notes(con, res.run.warnings)
     con.print(f"{res.evaluations} designs evaluated ({res.train_solves} train solves) in "
               f"{res.seconds:.1f} s")
+    if conf is not None:
+        _print_confidence(con, conf)
     if report:
         con.print(f"report written to {report}/")
     con.print(f"[dim]{safety}[/dim]")
+
+
+def _print_confidence(con, conf) -> None:
+    """The train sized to a probability of compliance, beside the deterministic one."""
+    from rich import box
+    from rich.table import Table
+    t = Table(title=f"Sized to a probability of compliance >= {conf.level:g} (limits as they "
+              f"are; {conf.samples} samples, seed {conf.seed}, common random numbers)",
+              box=box.SIMPLE_HEAD, pad_edge=False)
+    t.add_column("brick")
+    t.add_column("deterministic mm", justify="right")
+    t.add_column(f"P >= {conf.level:g} mm", justify="right")
+    d, b = conf.deterministic, conf.best
+    for i, name in enumerate(conf.brick_names):
+        t.add_row(escape(name), f"{d.lengths_m[i] * 1e3:.0f}",
+                  "-" if b is None else f"{b.lengths_m[i] * 1e3:.0f}")
+    t.add_row("volume L", f"{d.volume_m3 * 1e3:.0f}", "-" if b is None else
+              f"{b.volume_m3 * 1e3:.0f}")
+
+    def p(c):
+        lo, hi = c.compliance.interval
+        return f"{_pct(c.compliance.probability)} ({_pct(lo)} - {_pct(hi)})"
+    t.add_row("P(compliance) (95 % interval)", p(d), "-" if b is None else p(b))
+    con.print(t)
+    if b is None:
+        con.print(f"[red]no buildable train reached P >= {conf.level:g}[/red]"
+                  + (f": {escape(conf.note)}" if conf.note else ""))
+        top = max(conf.candidates, key=lambda c: c.compliance.probability)
+        con.print("the most probable train tried: " + ", ".join(
+            f"{escape(nm)} {L * 1e3:.0f} mm" for nm, L in zip(conf.brick_names, top.lengths_m))
+            + f", {top.volume_m3 * 1e3:.0f} L, P = {_pct(top.compliance.probability)}")
+    elif conf.note:
+        con.print(f"note: {escape(conf.note)}")
+    lo = b.compliance.interval[0] if b is not None else None
+    if lo is not None and lo < conf.level:
+        con.print(f"note: the lower end of the interval is below {conf.level:g}; for that "
+                  "confidence raise [study] samples")
+    con.print(f"{len(conf.candidates)} candidate trains x {conf.samples} samples on "
+              f"{escape(conf.where)} in {conf.seconds:.1f} s")
 
 
 def _print_notes(con, warnings) -> None:
@@ -416,6 +543,137 @@ def _print_run(result, safety: str, report: str | None) -> None:
     con.print(f"[dim]{safety}[/dim]")
 
 
+def _progress_bar(args, label: str):
+    """A context manager giving ``update(done, total)`` for a rich progress bar on stderr with
+    the rate and the time left (nothing with --json)."""
+    import contextlib
+    if args.json:
+        return contextlib.nullcontext(None)
+    from rich.console import Console
+    from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                               TimeElapsedColumn, TimeRemainingColumn)
+
+    class _Bar:
+        def __init__(self):
+            self.p = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(),
+                              TextColumn("{task.fields[rate]}"), TimeElapsedColumn(),
+                              TextColumn("ETA"), TimeRemainingColumn(),
+                              console=Console(stderr=True), transient=True)
+            self.task = None
+            self.first = None
+
+        def __enter__(self):
+            self.p.__enter__()
+            return self
+
+        def __exit__(self, *exc):
+            return self.p.__exit__(*exc)
+
+        def __call__(self, done: int, total: int):
+            import time
+            now = time.perf_counter()
+            if self.task is None:
+                self.task = self.p.add_task(label, total=total, completed=done, rate="")
+                self.first = (now, done)
+                return
+            t0, d0 = self.first
+            if done == d0:                         # (re)start: the rate counts from here
+                self.first = (now, done)
+                return
+            rate = (done - d0) / (now - t0) if now > t0 else 0.0
+            self.p.update(self.task, completed=done, total=total,
+                          rate=f"{rate:.2f} samples/s" if done > d0 else "")
+    return _Bar()
+
+
+def _study(args) -> int:
+    from pathlib import Path
+    from .cyclecase import load_run_case
+    from .output import to_json
+    from .study import StudyInterrupted, plan_study, run_study
+    case = load_run_case(args.case, args.set)
+    out = args.out or f"{Path(args.case).stem}_study"
+    if not args.resume and Path(out).exists() and (not Path(out).is_dir()
+                                                   or any(Path(out).iterdir())):
+        from .errors import InputError       # checked before any solving
+        raise InputError("the folder exists and holds files: give another --out, or --resume "
+                         "to continue the study in it", key="--out", value=out)
+    plan = _with_status(args, "running the case as given", lambda p: plan_study(case))
+    try:
+        with _progress_bar(args, "study") as bar:
+            run = run_study(case, out, resume=args.resume, scheduler=args.scheduler,
+                            workers=args.workers, progress=bar, plan=plan)
+    except StudyInterrupted as exc:
+        return _fail(1, str(exc))
+    if args.json:
+        print(to_json(run.to_json()))
+    else:
+        _print_study(run)
+    return 0
+
+
+def _pct(p: float) -> str:
+    return f"{100 * p:.1f} %"
+
+
+def _print_study(run) -> None:
+    from rich import box
+    from rich.console import Console
+    from rich.table import Table
+    from .output import SAFETY_NOTE
+    con = Console()
+    s, st, plan = run.summary, run.stats, run.plan
+    con.print(f"[bold]{escape(s.title)}[/bold]  ({escape(s.file)})")
+    _say_overrides(con, plan.case)
+    con.print(f"study: {s.design}, {s.n_planned} samples, seed {s.seed}; inputs: "
+              + escape(", ".join(s.inputs)))
+    con.print("the case as given: " + ("[green]passes[/]" if s.nominal_passed else
+                                       "[red]does not pass[/]")
+              + f" (worst value/limit {s.nominal_worst_ratio:.3f})")
+    o = s.overall
+    lo, hi = o.interval
+    con.print(f"probability of compliance with every limit: [bold]{_pct(o.probability)}[/bold]"
+              f" ({o.compliant} of {o.samples} samples; Wilson 95 % interval {_pct(lo)} - "
+              f"{_pct(hi)})")
+    t = Table(title="Probability of compliance per limit check (lowest first)",
+              box=box.SIMPLE_HEAD, pad_edge=False)
+    for col in ("check", "compliant", "P", "95 % interval"):
+        t.add_column(col, justify="left" if col == "check" else "right")
+    for c in sorted(s.checks, key=lambda c: c.probability)[:12]:
+        a, b = c.interval
+        t.add_row(escape(c.name), f"{c.compliant}/{c.samples}", _pct(c.probability),
+                  f"{_pct(a)} - {_pct(b)}")
+    con.print(t)
+    if len(s.checks) > 12:
+        con.print(f"({len(s.checks) - 12} more checks in summary.json)")
+    if s.sensitivity:
+        t = Table(title=f"Sensitivity of the worst value/limit: {s.sensitivity_method} "
+                  f"({s.sensitivity_samples} samples)", box=box.SIMPLE_HEAD, pad_edge=False)
+        t.add_column("input")
+        if s.design == "sobol":
+            t.add_column("S1", justify="right")
+            t.add_column("ST", justify="right")
+            for x in s.sensitivity:
+                t.add_row(escape(x.input), _num(x.S1), _num(x.ST))
+        else:
+            t.add_column("Spearman rho", justify="right")
+            for x in s.sensitivity:
+                t.add_row(escape(x.input), _num(x.rho))
+        con.print(t)
+    if s.n_not_converged or s.n_refused:
+        con.print(f"[yellow]{s.n_not_converged} sample(s) did not converge and {s.n_refused} "
+                  "were refused by the case: they count as failing[/yellow]")
+    for n in s.notes:
+        con.print(f"note: {escape(n)}")
+    con.print(f"ran on {escape(st.where)}: {st.samples} samples in {st.wall_s:.1f} s "
+              f"({st.samples_per_s:.2f} samples/s; start-up {st.startup_s:.1f} s; scheduler "
+              f"overhead {100 * st.overhead_share:.1f} %)"
+              + (f"; {run.resumed_chunks} chunks were already done" if run.resumed_chunks else ""))
+    con.print(f"dataset: {escape(run.folder)}/samples (pandas.read_parquet); summary and "
+              f"figures: " + escape(", ".join(run.files)))
+    con.print(f"[dim]{SAFETY_NOTE}[/dim]")
+
+
 def _num(v) -> str:
     return "-" if v is None else f"{v:.3g}"
 
@@ -475,6 +733,36 @@ def _print_point(case, sol, safety: str) -> None:
     con.print(f"[dim]{safety}[/dim]")
 
 
+def _fit(args) -> int:
+    """``aftertreat fit SPEC``: everything is checked before fitting (spec, data, the new file
+    and the report folder); the catalyst file and the fit folder are written whole or not at
+    all."""
+    from .fit import fit, load_fit_spec, write_catalyst
+    from .fit_report import print_fit, write_fit_folder
+    from .output import to_json
+    from .report import StagedFolder, check_report_folder
+    spec = load_fit_spec(args.spec, output=args.out)
+    folder = args.report or str(spec.output.with_name(spec.output.stem + "_fit"))
+    check_report_folder(folder)
+    res = _with_status(args, "fitting", lambda p: fit(spec, progress=p))
+    written = None
+    if res.converged:
+        written = write_catalyst(res)
+    with StagedFolder(folder) as tmp:
+        write_fit_folder(res, tmp)
+    if args.json:
+        obj = res.to_json()
+        obj["written"] = None if written is None else str(written)
+        obj["report"] = folder
+        print(to_json(obj))
+    else:
+        print_fit(res, written, folder)
+    if not res.converged:
+        return _fail(1, "the fit did not converge; no catalyst file was written (see the "
+                        "warnings and the fit folder)")
+    return 0
+
+
 def _sources(args) -> int:
     """Sources behind a case, without solving it."""
     from .case import load_case, read_toml
@@ -531,6 +819,21 @@ def _catalysts(args) -> int:
     for r in c.provenance_table():
         t.add_row(r["item"], r["parameter"], r["provenance"])
     con.print(t)
+    if c.fit:
+        f = c.fit
+        F = Table(title=f"Calibration ({escape(Path(f.get('spec', '?')).name)}, {f.get('date', '?')}; "
+                  f"chi2 {f.get('chi2', float('nan')):.1f} for {f.get('dof', '?')} degrees of "
+                  "freedom)")
+        for col in ("parameter", "fitted", "95 % low", "95 % high", "standard error"):
+            F.add_column(col, justify="left" if col == "parameter" else "right")
+        for i, label in enumerate(f["parameters"]):
+            x, var = f["mean"][i], f["covariance"][i][i]
+            ln = f["coordinates"][i] == "ln"
+            F.add_row(escape(label), f"{(math.exp(x) if ln else x):.4g}",
+                      f"{f['ci95_low'][i]:.4g}", f"{f['ci95_high'][i]:.4g}",
+                      f"{math.sqrt(var) * 100:.2g} % (ln)" if ln else f"{math.sqrt(var):.3g}")
+        con.print(F)
+        con.print(escape("The file's [fit] table holds the covariance of these values (for studies)."))
     if c.notes:
         con.print(f"Notes: {c.notes}")
     return 0

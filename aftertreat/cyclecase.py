@@ -54,6 +54,14 @@ Layout (our own key names; see ``cases/*.toml`` for complete examples)::
     CO2e_rise_max_pct = 10             # the train may add, % of the engine-out value
     objective = "volume"               # or "CO2e": least CO2e within the smallest volume
     volume_allowance_pct = 0           # (+ this %), see aftertreat.sizing
+    [study]                            # for 'aftertreat study' (aftertreat.study_spec)
+    design = "monte_carlo"             # or "lhs", "sobol", "grid"; samples, seed, chunk_size
+    [[study.uncertain]]                # path (a --set path or catalyst.<key>...), how,
+    path = "engine_out.NOx_ppm"        # distribution and its parameters; [[study.sweep]]
+    how = "scale"                      # takes values or lo..hi; [[study.correlated]] a
+    distribution = "lognormal"         # mean vector and covariance over catalyst parameters
+    median = 1.0
+    sigma = 0.1
     [sizing.build.extruded]            # buildable brick lengths per substrate kind (extruded,
     step_mm = 50                       # plate, coated): whole steps within [min_mm, max_mm];
     min_mm = 200                       # defaults in aftertreat/data/build_rules.toml
@@ -134,6 +142,8 @@ class RunCase:
     co2e_rise_warn_pct: float = CO2E_RISE_WARN_PCT
     #: the --set assignments applied to the file, as typed (echoed in outputs and reports)
     overrides: list[str] = field(default_factory=list)
+    #: the validated [study] table (aftertreat.study_spec.StudySpec), or None
+    study: object = None
 
     @property
     def n_modes(self) -> int:
@@ -421,7 +431,7 @@ def parse_run_case(data: dict, file: str) -> RunCase:
     trace_only = isinstance(data.get("transient"), dict) and "trace" in data["transient"] \
         and "cycle" not in data
     if trace_only:             # a measured time trace stands in for the cycle and engine-out map
-        for k in ("engine_out", "sizing"):
+        for k in ("engine_out", "sizing", "study"):
             if k in data:
                 raise InputError("a trace case (transient.trace, no [cycle]) has no "
                                  f"[{k}]: the trace gives the engine-out exhaust", key=k,
@@ -437,12 +447,16 @@ def parse_run_case(data: dict, file: str) -> RunCase:
         raise InputError("expected at least one [[brick]]", key="brick", file=file)
     train = Train([parse_brick(b, i, file) for i, b in enumerate(bricks)])
     sets, gwp, co2e_warn = _limits(data, file)
+    study = None
+    if "study" in data:
+        from .study_spec import parse_study
+        study = parse_study(data, file, n, [m.name for m in cycle.modes], train)
     return RunCase(title=str(data.get("title", Path(file).stem)), engine=engine, fuel=fuel,
                    cycle=cycle, engine_out=engine_out, dosing=dosing, train=train,
                    limit_sets=sets, gwp_set=gwp, sizing=_sizing(data, file), file=file, data=data,
                    transient=parse_transient(data, file, has_cycle=cycle is not None,
                                              dosing_method=dosing["method"]),
-                   co2e_rise_warn_pct=co2e_warn)
+                   co2e_rise_warn_pct=co2e_warn, study=study)
 
 
 def load_run_case(path, sets: list[str] | None = None) -> RunCase:

@@ -33,8 +33,8 @@ if "-m" in _ARGV and _ARGV[_ARGV.index("-m") + 1:][:1] == ["aftertreat.schema"]:
     warnings.filterwarnings("ignore", message="'aftertreat.schema' found in sys.modules",
                             category=RuntimeWarning)
 
-__all__ = ["Key", "Range", "TABLES", "KEYS", "keys", "key", "table_keys", "bounds", "fill",
-           "markdown"]
+__all__ = ["Key", "Range", "TABLES", "KEYS", "ITEM_TABLES", "ITEM_KEYS", "keys", "key",
+           "table_keys", "item_keys", "bounds", "fill", "markdown"]
 
 # ---- types of values ---------------------------------------------------------------------------
 NUMBER = "number"
@@ -47,6 +47,10 @@ NUMBERS = "number or list of numbers"
 TEXTS = "list of text"
 TABLE = "table"
 TABLE_LIST = "list of tables"
+MATRIX = "matrix"                # a list of lists of numbers, row by row
+PATHS = "path or paths"          # a text, or a list of texts
+VALUES = "values"                # a list of numbers, or a list of texts
+MODE = "mode"                    # a whole number (position from 0) or a text (a name)
 
 POINT, CYCLE = "point", "cycle"
 BOTH = (POINT, CYCLE)
@@ -55,7 +59,9 @@ _TYPE_WORDS = {
     NUMBER: "number", WHOLE: "whole number", TEXT: "text", BOOL: "true or false",
     PER_MODE: "number, or list of one number per mode", QUANTITY: "quantity (text with unit)",
     NUMBERS: "number, or list of numbers", TEXTS: "list of texts", TABLE: "table",
-    TABLE_LIST: "list of tables",
+    TABLE_LIST: "list of tables", MATRIX: "list of lists of numbers",
+    PATHS: "text, or list of texts", VALUES: "list of numbers, or list of texts",
+    MODE: "whole number or text",
 }
 
 
@@ -153,6 +159,10 @@ TABLES: tuple[tuple[str, str, str], ...] = (
      "[cycle] held and ramped."),
     ("transient.dosing", "[transient.dosing]", "How the dosing follows the exhaust during a "
      "transient run."),
+    ("study", "[study]", "A study of many cycle runs (`aftertreat study`, `aftertreat size "
+     "--confidence`): design sweeps and Monte Carlo over stated uncertainties. Its items "
+     "are the tables [[study.sweep]], [[study.uncertain]] and [[study.correlated]] below; "
+     "docs/study.md explains the designs and the results."),
 )
 
 _ONLY_TRACE = "only with `trace`"
@@ -217,6 +227,8 @@ KEYS: tuple[Key, ...] = tuple([
         default="the defaults below; refused in a trace case", cases=(CYCLE,)),
     Key("", "transient", TABLE, "A run through time.", default="none (no transient run)",
         cases=(CYCLE,)),
+    Key("", "study", TABLE, "A study: sweeps and uncertainties over many cycle runs.",
+        default="none; refused in a trace case", cases=(CYCLE,)),
     # ---- [engine] -------------------------------------------------------------------------
     Key("engine", "application", TEXT, "The kind of installation, shown with the results.",
         allowed="one of {applications}", default="required", cases=(CYCLE,)),
@@ -591,7 +603,121 @@ KEYS: tuple[Key, ...] = tuple([
         default_value=30.0, cases=(CYCLE,)),
     Key("transient.dosing", "ANR_max", NUMBER, "The most `storage` control may dose.",
         unit="mol NH3 per mol NOx", range=Range(0.0, 3.0), default_value=1.5, cases=(CYCLE,)),
+    # ---- [study] (aftertreat/study_spec.py) ----------------------------------------------
+    Key("study", "design", TEXT, "How the samples are placed: independent Monte Carlo draws, a "
+        "Latin hypercube, a scrambled Sobol sequence arranged for Sobol indices, or a full "
+        "grid of the sweep levels (each point repeated for the Monte Carlo draws of the "
+        "uncertain inputs, the same draws at every point).", choices=("monte_carlo", "lhs",
+                                                                        "sobol", "grid"),
+        default='`"monte_carlo"`', cases=(CYCLE,)),
+    Key("study", "samples", WHOLE, "Monte Carlo or Latin-hypercube samples; the base n of a "
+        "Sobol design (n (k + 2) runs for k inputs); the draws per grid point of a grid.",
+        range=Range(1, 10_000_000), allowed="a power of 2 for `sobol`",
+        default="{study_samples}", cases=(CYCLE,)),
+    Key("study", "seed", WHOLE, "Seed of the random draws; a sample's values depend only on "
+        "the seed and its index, and every row records it.", range=Range(0, 2 ** 63 - 1),
+        default="{study_seed}", cases=(CYCLE,)),
+    Key("study", "chunk_size", WHOLE, "Samples sent to a worker at a time (it changes no value).",
+        range=Range(1, 100_000), default="from the number of samples: about 64 chunks, at most "
+        "{study_chunk_max} samples each", cases=(CYCLE,)),
+    Key("study", "sweep", TABLE_LIST, "Design variables (see [[study.sweep]]).",
+        default="none", cases=(CYCLE,)),
+    Key("study", "uncertain", TABLE_LIST, "Uncertain inputs with their distributions (see "
+        "[[study.uncertain]]).", default="none", cases=(CYCLE,)),
+    Key("study", "correlated", TABLE_LIST, "Catalyst parameters drawn together from a "
+        "multivariate normal (see [[study.correlated]]).", default="none", cases=(CYCLE,)),
 ])
+
+# ---- items of the [study] lists ---------------------------------------------------------------
+# These lists of tables are read by aftertreat/study_spec.py, which refuses any other key by
+# name; they are documented here with the same Key records and rendered after [study].
+_PATH = ("the dotted path of a case value, as `--set` takes it (list items by position or "
+         "name), or `catalyst.<key>.<reaction>.k_ref|ln_k_ref|E_kJ_mol` or "
+         "`catalyst.<key>.site.<site>.capacity_mol_m3`; or a list of paths that take the same "
+         "value; checked against the case when it is read")
+_HOW = ("`set`: the value replaces the case value; `scale`: it multiplies it; `shift`: it is "
+        "added to it (a per-mode list at every mode, or at `mode`)")
+#: (table, heading, what it holds)
+ITEM_TABLES: tuple[tuple[str, str, str], ...] = (
+    ("study.sweep[]", "[[study.sweep]]", "One design variable of a study; repeat for each."),
+    ("study.uncertain[]", "[[study.uncertain]]", "One uncertain input of a study, with its "
+     "distribution; repeat for each. The parameters a distribution takes: {distributions}."),
+    ("study.correlated[]", "[[study.correlated]]", "Catalyst parameters drawn together from a "
+     "multivariate normal, e.g. the estimate and covariance of a catalyst fit."),
+)
+
+
+def _item_common(t: str) -> list[Key]:
+    return [
+        Key(t, "path", PATHS, "What the item changes.", allowed=_PATH, default="required",
+            cases=(CYCLE,)),
+        Key(t, "how", TEXT, "How the value acts on the case value.", choices=("set", "scale",
+                                                                             "shift"),
+            allowed=_HOW, default='`"set"`', cases=(CYCLE,)),
+        Key(t, "mode", MODE, "Change a per-mode value at this mode only.",
+            allowed="a mode position from 0 (a number) or a mode name of the cycle",
+            default="every mode", cases=(CYCLE,)),
+        Key(t, "unit", TEXT, "Unit written after a value that is set, for quantities.",
+            allowed='e.g. `"mm"`; only with `how = "set"`', default="none", cases=(CYCLE,)),
+        Key(t, "name", TEXT, "The item's input column in the dataset (`x.<name>`).",
+            allowed="distinct from the other items'", default="the path, with `_scale`, "
+            "`_shift`, `_<unit>` and the mode added", cases=(CYCLE,)),
+    ]
+
+
+ITEM_KEYS: tuple[Key, ...] = tuple([
+    *_item_common("study.sweep[]"),
+    Key("study.sweep[]", "values", VALUES, "The values to try (numbers, or texts such as "
+        "catalyst keys).", allowed="a non-empty list; give `values` or `lo` and `hi`",
+        default="none", cases=(CYCLE,)),
+    Key("study.sweep[]", "lo", NUMBER, "Low end of the range.", unit="the value's unit",
+        allowed="below `hi`", default="none", cases=(CYCLE,)),
+    Key("study.sweep[]", "hi", NUMBER, "High end of the range.", unit="the value's unit",
+        allowed="above `lo`", default="none", cases=(CYCLE,)),
+    Key("study.sweep[]", "points", WHOLE, "Levels from `lo` to `hi` on a grid.",
+        range=Range(2, 10000), allowed='only with `design = "grid"`',
+        default="{study_points}", cases=(CYCLE,)),
+    *_item_common("study.uncertain[]"),
+    Key("study.uncertain[]", "distribution", TEXT, "The distribution of the value.",
+        choices=("normal", "lognormal", "uniform", "triangular"), default="required",
+        cases=(CYCLE,)),
+    Key("study.uncertain[]", "mean", NUMBER, "Mean of a normal distribution.",
+        default="required for `normal`", cases=(CYCLE,)),
+    Key("study.uncertain[]", "sd", NUMBER, "Standard deviation of a normal distribution.",
+        range=Range(0.0), default="required for `normal`", cases=(CYCLE,)),
+    Key("study.uncertain[]", "median", NUMBER, "Median of a lognormal distribution.",
+        range=Range(0.0, lo_open=True), default="required for `lognormal`", cases=(CYCLE,)),
+    Key("study.uncertain[]", "sigma", NUMBER, "Standard deviation of ln x of a lognormal "
+        "distribution.", range=Range(0.0), default="required for `lognormal`",
+        cases=(CYCLE,)),
+    Key("study.uncertain[]", "lo", NUMBER, "Low end of a uniform or triangular distribution.",
+        allowed="below `hi`", default="required for `uniform` and `triangular`",
+        cases=(CYCLE,)),
+    Key("study.uncertain[]", "peak", NUMBER, "Most likely value of a triangular distribution.",
+        allowed="within [`lo`, `hi`]", default="required for `triangular`", cases=(CYCLE,)),
+    Key("study.uncertain[]", "hi", NUMBER, "High end of a uniform or triangular distribution.",
+        allowed="above `lo`", default="required for `uniform` and `triangular`",
+        cases=(CYCLE,)),
+    Key("study.correlated[]", "parameters", TEXTS, "The catalyst parameters, as paths "
+        "`catalyst.<key>.<reaction>.<parameter>`.", allowed="distinct; parameters among "
+        "{catalyst_params}", default="required", cases=(CYCLE,)),
+    Key("study.correlated[]", "mean", NUMBERS, "Mean of each parameter.",
+        allowed="one number per parameter", default="required", cases=(CYCLE,)),
+    Key("study.correlated[]", "covariance", MATRIX, "Covariance matrix of the parameters, "
+        "row by row.", allowed="a list of lists, k x k, symmetric and positive semi-definite",
+        default="required", cases=(CYCLE,)),
+    Key("study.correlated[]", "how", TEXT, "How the drawn values act on the catalyst's "
+        "parameters.", choices=("set", "scale", "shift"), default='`"set"`',
+        cases=(CYCLE,)),
+])
+
+
+def item_keys(table: str) -> tuple[str, ...]:
+    """The names a [study] list item (``study.sweep[]``, ``study.uncertain[]``,
+    ``study.correlated[]``) accepts."""
+    if table not in {t for t, _, _ in ITEM_TABLES}:
+        raise KeyError(f"no item table {table!r} in the schema")
+    return tuple(n for k in ITEM_KEYS if k.table == table for n in k.names)
 
 
 # ---- queries the parsers use ---------------------------------------------------------------
@@ -769,6 +895,14 @@ _FROM_CODE = {
     "p_atm_kPa": _from("units", "P_ATM_PA", _number(1e-3)),
     "idle_fuel_pct": _from("cyclecase", "IDLE_FUEL_PCT_DEFAULT", _number()),
     "co2e_warn": _from("cyclecase", "CO2E_RISE_WARN_PCT", _number()),
+    "study_samples": _from("study_spec", "DEFAULT_SAMPLES", _number()),
+    "study_seed": _from("study_spec", "DEFAULT_SEED", _number()),
+    "study_points": _from("study_spec", "DEFAULT_POINTS", _number()),
+    "study_chunk_max": _from("study", "CHUNK_MAX", _number()),
+    "catalyst_params": _from("study_spec", "CATALYST_PARAMS", _code),
+    "distributions": lambda: "; ".join(
+        f"`{k}`: " + ", ".join(f"`{p}`" for p in v)
+        for k, v in __import__("aftertreat.sampling", fromlist=["x"]).DISTRIBUTIONS.items()),
 }
 _PLACEHOLDER = re.compile(r"\{([A-Za-z_0-9]+)\}")
 
@@ -855,6 +989,16 @@ def _section(table: str, heading: str, intro: str, cache: dict) -> list[str]:
     if table == "":
         out += ["A point case reads " + _code(keys("", case=POINT)) + "; a duty-cycle case "
                 + _code(keys("", case=CYCLE)) + ".", ""]
+    return out
+
+
+def _item_section(table: str, heading: str, intro: str, cache: dict) -> list[str]:
+    """A section of a [study] item table (:data:`ITEM_KEYS`)."""
+    out = [f"## {heading}", "", fill(intro, cache) + " Read in duty-cycle cases.", "",
+           "| key | type | unit | allowed | default | meaning |", "|---|---|---|---|---|---|"]
+    out += ["| " + " | ".join(_cell(c) for c in _row(k, cache)) + " |" for k in ITEM_KEYS
+            if k.table == table]
+    out.append("")
     return out
 
 
@@ -957,6 +1101,9 @@ def markdown() -> str:
            "value as it comes.", ""]
     for table, heading, intro in TABLES:
         out += _section(table, heading, intro, cache)
+        if table == "study":
+            for t, h, i in ITEM_TABLES:
+                out += _item_section(t, h, i, cache)
     out += _notes(cache)
     out += _shipped(cache)
     return "\n".join(out).rstrip("\n") + "\n"
