@@ -30,7 +30,7 @@ __all__ = ["Catalyst", "LayeredCatalyst", "PoreStructure", "load_catalyst", "loa
 #: How a parameter was obtained; every provenance string starts with one of these.
 PROVENANCE_KINDS = ("transcribed", "from memory", "fitted")
 _TOP_KEYS = {"name", "description", "role", "valid_T_C", "source", "pores", "site", "reaction",
-             "notes"}
+             "notes", "fit"}
 
 
 @dataclass(frozen=True)
@@ -71,6 +71,7 @@ class Catalyst:
     file: str
     site_provenance: dict[str, dict[str, str]] = field(default_factory=dict)
     notes: str = ""
+    fit: dict = field(default_factory=dict)      # the [fit] table of a calibrated file
 
     def check_temperature(self, T: float, what: str = "temperature") -> None:
         """Raise :class:`InputError` if ``T`` [K] lies outside the file's validity range."""
@@ -102,6 +103,27 @@ class Catalyst:
             out.append(f"{s.get('authors', '?')} ({s.get('year', '?')}).{title} "
                        f"{s.get('journal', '')}{doi}")
         return out
+
+
+def _fit_table(fit, file: str) -> dict:
+    """The ``[fit]`` table a calibration wrote (aftertreat.fit): parameter labels, fitted
+    coordinates, their covariance and 95 % intervals; checked for shape, else empty."""
+    if fit is None:
+        return {}
+    try:
+        labels = list(fit["parameters"])
+        n = len(labels)
+        mean = np.asarray(fit["mean"], dtype=float)
+        cov = np.asarray(fit["covariance"], dtype=float)
+        ok = mean.shape == (n,) and cov.shape == (n, n) and len(fit["coordinates"]) == n \
+            and len(fit["ci95_low"]) == n and len(fit["ci95_high"]) == n
+    except (KeyError, TypeError, ValueError):
+        ok = False
+    if not ok:
+        raise InputError("expected parameters, coordinates, mean, covariance (n x n), ci95_low "
+                         "and ci95_high of equal length (as aftertreat fit writes them)",
+                         key="fit", file=file)
+    return dict(fit)
 
 
 def _check_provenance(prov: dict, needed: list[str], file: str, where: str) -> None:
@@ -176,7 +198,7 @@ def parse_catalyst(data: dict, *, key: str, file: str) -> Catalyst:
                     description=str(data.get("description", "")), role=role,
                     valid_T=(vt[0] + ZERO_C_K, vt[1] + ZERO_C_K), sources=sources, pores=pores,
                     mechanism=mech, file=file, site_provenance=site_prov,
-                    notes=str(data.get("notes", "")))
+                    notes=str(data.get("notes", "")), fit=_fit_table(data.get("fit"), file))
 
 
 @dataclass

@@ -139,8 +139,13 @@ def _split_header(cell: str) -> tuple[str, str | None]:
 
 def _unit(text: str, q: str, header: str, file: str):
     """The pint unit of column ``header``, checked against quantity ``q``'s dimension."""
+    return column_unit(text, QUANTITIES[q][0], header, file)
+
+
+def column_unit(text: str, si: str, header: str, file: str):
+    """The pint unit ``text`` of column ``header``, checked to convert to ``si`` (traces, lab
+    data); ``-`` or an empty unit means dimensionless."""
     reg = ureg()
-    si = QUANTITIES[q][0]
     if not checked_unit_text(text):
         raise InputError(f"unit '{text}' is not a plain unit (powers must be small numbers; "
                          f"expected units of {si})", key=header, value=text, file=file)

@@ -1,0 +1,246 @@
+"""The bench reactor of a kinetic calibration: a core sample of catalyst in a furnace, fed a
+synthetic gas, and what the model says it measures in each experiment (:mod:`aftertreat.labdata`).
+
+The sample is a :class:`~aftertreat.brick.Brick` built from the ``[reactor]`` table with the
+brick keys of a case (``substrate``, ``cpsi``, ``wall``, ``washcoat_um``, ``length``,
+``diameter``, ``cells`` ...), plus the flow (``GHSV_per_h`` at normal conditions, or
+``flow_L_min`` normal, or ``total_mol_s``) and ``p_kPa``. ``mass_transfer = false`` turns film
+and washcoat resistance off (a kinetically limited sample, for checks against a kinetic-only
+reference).
+
+Thermal model (common practice for a bench: a small core in a furnace at the measured
+temperature):
+
+* steady points: the sample is held at the row's T through a can heat-loss coefficient of
+  1e6 W/(m2 K) to a furnace at that T (reaction heat of ppm-level feeds is then invisible);
+* time runs (tpd, step): the sample follows the gas temperature of each row, its heat capacity
+  set to 10 kJ/(m3 K) (the least a brick takes; a real substrate has some 500-2000), so that it
+  lags the gas by about a second or less.
+
+Each experiment gives the model's outlet ppm (wet) at the measured rows, species by species, in
+the order of :attr:`Experiment.measured`; :func:`predict` counts the model solves it makes.
+"""
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+
+import numpy as np
+
+from .brick import Brick
+from .checks import number
+from .errors import InputError
+from .labdata import Experiment
+from .stream import Stream
+from .train import Train
+from .units import P_NORMAL_PA, R_GAS, T_NORMAL_K
+
+__all__ = ["BenchReactor", "parse_reactor", "predict"]
+
+#: [reactor] keys that are not brick keys
+_FLOW_KEYS = {"GHSV_per_h", "flow_L_min", "total_mol_s", "p_kPa", "mass_transfer"}
+#: O2 of an O2-free carrier (TPD and steps are often run in N2 or He) [mol/mol]: 1 ppm. Time
+#: steps of the transient solver do not converge with exactly zero O2 (measured on a 25 mm
+#: Cu-CHA core purged in N2 + 5 % H2O: every sub-step rejected, while 1 ppm O2 converges at
+#: once); no shipped rate law is sensitive to O2 at the ppm level.
+O2_FLOOR = 1e-6
+#: relative tolerance of the time experiments' integration (outlet ppm change by < 0.1 % of
+#: their peak against 1e-7; measured on the demo TPD)
+RTOL = 1e-5
+#: the furnace hold of a steady point [W/(m2 K)] (see the module docstring)
+HOLD_W_M2K = 1e6
+#: heat capacity of the sample in time runs [kJ/(m3 K) of brick] (see the module docstring)
+FOLLOW_GAS_KJ_M3K = 10.0
+
+
+@dataclass
+class BenchReactor:
+    """The core sample and its feed rate: ``total_mol_s`` of gas at ``p`` [Pa]."""
+    brick: Brick
+    total_mol_s: float
+    p: float
+    mass_transfer: bool = True
+
+    def with_catalyst(self, catalyst) -> "BenchReactor":
+        """The same reactor with ``catalyst`` in the sample (one catalytic layer)."""
+        return dataclasses.replace(self, brick=dataclasses.replace(
+            self.brick, catalysts=(catalyst,)))
+
+    def inlet(self, x: dict[str, float], T: float) -> Stream:
+        """The feed ``x`` (wet mole fractions, balance N2) at ``T``; O2 at least
+        :data:`O2_FLOOR` (see there)."""
+        x = dict(x)
+        x["O2"] = max(x.get("O2", 0.0), O2_FLOOR)
+        return Stream.from_mole_fractions(x, T=T, p=self.p, total_mol_s=self.total_mol_s)
+
+    def steady_brick(self, T: float) -> Brick:
+        return dataclasses.replace(self.brick, heat_loss_W_m2K=HOLD_W_M2K, T_ambient=T)
+
+    def time_brick(self) -> Brick:
+        return dataclasses.replace(self.brick, heat_loss_W_m2K=0.0,
+                                   heat_capacity_kJ_m3K=FOLLOW_GAS_KJ_M3K)
+
+
+def parse_reactor(table, file: str, catalyst) -> BenchReactor:
+    """Validate the ``[reactor]`` table of a fit spec (see the module docstring)."""
+    from .case import parse_brick
+    if not isinstance(table, dict):
+        raise InputError("expected a [reactor] table: the core sample (brick keys) and its "
+                         "flow", key="reactor", file=file)
+    brick_keys = {k: v for k, v in table.items() if k not in _FLOW_KEYS}
+    brick_keys.setdefault("name", "sample")
+    brick_keys["catalyst"] = catalyst.file
+    given = [k for k in ("GHSV_per_h", "flow_L_min", "total_mol_s") if k in table]
+    if len(given) != 1:
+        raise InputError("give exactly one of GHSV_per_h (normal conditions), flow_L_min "
+                         "(normal) and total_mol_s", key="reactor", value=given or None,
+                         file=file)
+    try:
+        brick = parse_brick(brick_keys, 0, file)
+    except InputError as exc:
+        raise InputError(exc.expected, key=(exc.key or "").replace("brick[0].", "reactor."),
+                         value=exc.value, file=exc.file or file) from None
+    if len(brick.catalysts) != 1:
+        raise InputError("the sample holds one catalyst layer", key="reactor.washcoat_um",
+                         file=file)
+    p = number(table.get("p_kPa", P_NORMAL_PA / 1e3), "reactor.p_kPa", file, lo=1.0,
+               hi=1e4) * 1e3
+    n_normal = P_NORMAL_PA / (R_GAS * T_NORMAL_K)            # mol per m3 at normal conditions
+    key = given[0]
+    v = number(table[key], f"reactor.{key}", file, lo=0.0, lo_open=True)
+    if key == "GHSV_per_h":
+        mol_s = v * brick.volume / 3600.0 * n_normal
+    elif key == "flow_L_min":
+        mol_s = v * 1e-3 / 60.0 * n_normal
+    else:
+        mol_s = v
+    mt = table.get("mass_transfer", True)
+    if not isinstance(mt, bool):
+        raise InputError("expected true or false", key="reactor.mass_transfer", value=mt,
+                         file=file)
+    if not mt:
+        brick = dataclasses.replace(brick, film=False, washcoat="none")
+    return BenchReactor(brick=brick, total_mol_s=mol_s, p=p, mass_transfer=mt)
+
+
+@dataclass
+class Prediction:
+    """The model's outlet of one experiment: species -> ppm (wet) at the measured rows, and
+    whether every solve converged."""
+    outlet_ppm: dict[str, np.ndarray]
+    converged: bool
+    solves: int
+
+
+def predict(reactor: BenchReactor, exp: Experiment, settings=None) -> Prediction:
+    """What the bench would measure in ``exp`` with ``reactor``'s sample (module docstring)."""
+    if exp.kind in ("steady", "lightoff"):
+        return _steady(reactor, exp, settings)
+    return _timed(reactor, exp)
+
+
+def _ppm(F: np.ndarray, sp: str) -> float:
+    from .species import INDEX
+    return float(F[INDEX[sp]] / F.sum() * 1e6)
+
+
+def _steady(reactor, exp, settings) -> Prediction:
+    out = {sp: np.empty(len(exp.T_K)) for sp in exp.measured}
+    ok = True
+    for j, T in enumerate(exp.T_K):
+        train = Train([reactor.steady_brick(float(T))])
+        sol = train.solve(reactor.inlet(exp.feed_at(j), float(T)), settings=settings)
+        ok &= sol.converged
+        for sp in out:
+            out[sp][j] = _ppm(sol.outlet.F, sp)
+    return Prediction(outlet_ppm=out, converged=bool(ok), solves=len(exp.T_K))
+
+
+def _timed(reactor, exp) -> Prediction:
+    """A time experiment (tpd, step) on the sample as ``N`` well-mixed tanks in series (N = the
+    sample's cells), isothermal at the row's temperature (linear between rows), in the kinetic
+    limit (film and washcoat resistance neglected, common practice for TPD and breakthrough
+    analysis at bench flows), with the catalyst's own rate laws (:meth:`Mechanism.rates`)::
+
+        eps V/N dc_i,k/dt = Q (c_i,k-1 - c_i,k) + f V/N sum_r nu_i,r r_r(c_k, theta_k, T)
+        Omega_s dtheta_s,k/dt = sum_r nu_s,r r_r(c_k, theta_k, T)
+
+    with the open fraction eps, the catalytic fraction f, the brick volume V and Q = F R T / p
+    (the molar flow F is held at the feed's: ppm-level reactions change it by ppm). Integrated
+    with scipy's BDF (Shampine & Reichelt, SIAM J. Sci. Comput. 18 (1997) 1). A tpd starts from
+    the sample saturated in ``adsorb`` (the same tanks integrated to steady coverage at the
+    adsorption T); a step from a clean sample (no stored NH3, the gas free of NH3).
+    """
+    from scipy.integrate import solve_ivp
+    from .species import INDEX, SPECIES
+    b = reactor.brick
+    mech = b.catalysts[0].mechanism
+    N = max(int(b.cells), 1)
+    V = b.volume
+    Vg, Vc = b.substrate.ofa * V / N, b.substrate.catalytic_fraction * V / N
+    omega = np.asarray(mech.capacity, dtype=float)
+    ns, nsp = len(omega), len(SPECIES)
+    F, p = reactor.total_mol_s, reactor.p
+    t_data, T_data = exp.time_s, exp.T_K
+    act = float(b.activity)
+    evals = [0]
+
+    def conc(x: dict, T: float) -> np.ndarray:
+        return reactor.inlet(x, T).x * p / (R_GAS * T)
+
+    def rhs_for(T_of, c_in_of):
+        def rhs(t, y):
+            evals[0] += 1
+            T = T_of(t)
+            c = y[:N * nsp].reshape(N, nsp)
+            th = y[N * nsp:].reshape(N, ns)
+            r = mech.rates(c, th, np.full(N, T), act)
+            up = np.vstack([c_in_of(t)[None], c[:-1]])
+            Q = F * R_GAS * T / p
+            dc = (Q * (up - c) + Vc * (r @ mech.nu_gas)) / Vg
+            dth = (r @ mech.nu_site) / omega
+            return np.concatenate([dc.ravel(), dth.ravel()])
+        return rhs
+
+    # Jacobian sparsity: a tank's unknowns see their own tank and the gas of the one upstream
+    n = N * (nsp + ns)
+    tank = np.concatenate([np.repeat(np.arange(N), nsp), np.repeat(np.arange(N), ns)])
+    gas = np.arange(n) < N * nsp
+    pattern = (tank[:, None] == tank[None, :]) | ((tank[:, None] == tank[None, :] + 1)
+                                                   & gas[None, :])
+
+    def integrate(rhs, y0, t_span, t_eval=None):
+        return solve_ivp(rhs, t_span, y0, method="BDF", t_eval=t_eval, rtol=RTOL,
+                         jac_sparsity=pattern,
+                         atol=np.concatenate([np.full(N * nsp, 1e-12), np.full(N * ns, 1e-9)]))
+
+    if exp.kind == "tpd":
+        c_ad = conc(exp.adsorb_feed, exp.adsorb_T_K)
+        y0 = np.concatenate([np.tile(c_ad, N), np.zeros(N * ns)])
+        sat = integrate(rhs_for(lambda t: exp.adsorb_T_K, lambda t: c_ad), y0, (0.0, 1e6))
+        y0 = sat.y[:, -1]
+        ok = sat.success
+    else:
+        c0 = conc(exp.feed_at(0), float(T_data[0]))
+        c0[INDEX["NH3"]] = 0.0
+        y0, ok = np.concatenate([np.tile(c0, N), np.zeros(N * ns)]), True
+    # the feed of row j holds over the interval ending at row j; T is linear between rows
+    feeds = [conc(exp.feed_at(j), float(T_data[j])) * float(T_data[j]) for j in range(len(t_data))]
+
+    def c_in_of(t):
+        j = min(int(np.searchsorted(t_data, t)), len(t_data) - 1)
+        return feeds[j] / T_of(t)
+
+    def T_of(t):
+        return float(np.interp(t, t_data, T_data))
+    sol = integrate(rhs_for(T_of, c_in_of), y0, (float(t_data[0]), float(t_data[-1])),
+                    t_eval=t_data)
+    ok &= sol.success and sol.y.shape[1] == len(t_data)
+    out = {}
+    if ok:
+        c = sol.y[(N - 1) * nsp:N * nsp].T                      # the last tank's gas [rows, nsp]
+        x = c / np.maximum(c.sum(axis=1, keepdims=True), 1e-300)
+        out = {sp: x[:, INDEX[sp]] * 1e6 for sp in exp.measured}
+    else:
+        out = {sp: np.full(len(t_data), np.nan) for sp in exp.measured}
+    return Prediction(outlet_ppm=out, converged=bool(ok), solves=evals[0])
