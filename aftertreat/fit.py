@@ -427,7 +427,7 @@ def fit(spec: FitSpec, *, progress=None) -> FitResult:
     best = None
     for x0 in starts:
         res = least_squares(fun, x0, bounds=(lo, hi), method="trf", x_scale="jac",
-                            diff_step=1e-4, xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=200)
+                            diff_step=1e-4, xtol=1e-8, ftol=1e-8, gtol=1e-8, max_nfev=200)
         if best is None or res.cost < best.cost:
             best = res
     x = best.x
