@@ -343,6 +343,30 @@ def default_workers() -> int:
                else (os.cpu_count() or 1))
 
 
+@dataclass
+class _Tally:
+    """The chunks a run has written so far, and what they cost: each finished chunk goes into
+    the store once (:meth:`add`), then the counters and the progress line follow."""
+    store: object
+    progress: object
+    done_samples: int
+    total: int
+    compute: float = 0.0
+    cpu: float = 0.0
+    computed: int = 0
+    written: int = 0
+
+    def add(self, k: int, table, sec: float, cpu_s: float) -> None:
+        self.store.write_chunk(k, table)
+        self.written += 1
+        self.compute += sec
+        self.cpu += cpu_s
+        self.computed += table.num_rows
+        self.done_samples += table.num_rows
+        if self.progress:
+            self.progress(self.done_samples, self.total)
+
+
 def run_study(case, out, *, resume: bool = False, scheduler: str | None = None,
               workers: int | None = None, progress=None, plan: StudyPlan | None = None,
               write_figures: bool = True) -> StudyRun:
@@ -365,9 +389,7 @@ def run_study(case, out, *, resume: bool = False, scheduler: str | None = None,
         progress(done_samples, total)
     payload = plan.payload()
     t_start = time.perf_counter()
-    compute = cpu = 0.0
-    computed = 0
-    memory: tuple[float, ...] = ()
+    tally = _Tally(store=store, progress=progress, done_samples=done_samples, total=total)
     if workers == 0 and scheduler is None:
         n_workers, where = 1, "this process (no Dask)"
         if missing:
@@ -375,30 +397,20 @@ def run_study(case, out, *, resume: bool = False, scheduler: str | None = None,
             if progress:
                 progress(done_samples, total)         # the rate counts from here
         t0 = time.perf_counter()
-        written = 0
         try:
             for k in missing:
-                _, table, sec, cpu_s = _run_chunk(payload, k, list(store.chunk_indices(k)))
-                store.write_chunk(k, table)
-                written += 1
-                compute += sec
-                cpu += cpu_s
-                computed += table.num_rows
-                done_samples += table.num_rows
-                if progress:
-                    progress(done_samples, total)
+                tally.add(*_run_chunk(payload, k, list(store.chunk_indices(k))))
         except KeyboardInterrupt:
-            raise StudyInterrupted(done_before + written, store.n_chunks,
+            raise StudyInterrupted(done_before + tally.written, store.n_chunks,
                                    "interrupted") from None
         memory = (_rss_MB(),)
         wall = time.perf_counter() - t0
     else:
-        compute, cpu, computed, memory, n_workers, where, t0, wall = _run_dask(
-            store, missing, payload, scheduler, workers, progress, done_samples, total,
-            done_before)
-    stats = ExecutionStats(workers=n_workers, where=where, wall_s=wall, compute_s=compute,
-                           samples=computed, memory_MB=memory, startup_s=t0 - t_start,
-                           cpu_s=cpu)
+        memory, n_workers, where, t0, wall = _run_dask(
+            tally, missing, payload, scheduler, workers, done_before)
+    stats = ExecutionStats(workers=n_workers, where=where, wall_s=wall, compute_s=tally.compute,
+                           samples=tally.computed, memory_MB=memory, startup_s=t0 - t_start,
+                           cpu_s=tally.cpu)
     table = store.read()
     summary = summarise(plan, table)
     files = write_outputs(store, plan, table, summary, stats, figures=write_figures)
@@ -406,8 +418,10 @@ def run_study(case, out, *, resume: bool = False, scheduler: str | None = None,
                     files=files, resumed_chunks=done_before)
 
 
-def _run_dask(store, missing, payload, scheduler, workers, progress, done_samples, total,
-              done_before):
+def _run_dask(tally: _Tally, missing, payload, scheduler, workers, done_before):
+    """The missing chunks on Dask, each recorded in ``tally`` as it finishes; returns the
+    workers' memory, their number, where they ran, the start of the computation and its wall
+    time."""
     from dask.distributed import Client, as_completed
     cluster = None
     if scheduler is not None:
@@ -422,7 +436,7 @@ def _run_dask(store, missing, payload, scheduler, workers, progress, done_sample
         cluster = _local_cluster(n)
         client = Client(cluster)
         where = f"local Dask cluster (127.0.0.1), {n} worker process(es)"
-    compute, cpu, computed, written = 0.0, 0.0, 0, 0
+    store, progress = tally.store, tally.progress
     memory: tuple[float, ...] = ()
     futures = []
     try:
@@ -431,7 +445,7 @@ def _run_dask(store, missing, payload, scheduler, workers, progress, done_sample
         if missing:
             client.run(_warm, payload)
             if progress:
-                progress(done_samples, total)         # the rate counts from here
+                progress(tally.done_samples, tally.total)    # the rate counts from here
         t0 = time.perf_counter()
         tag = payload["key"][:12]
         futures = [client.submit(_run_chunk, remote, k, list(store.chunk_indices(k)),
@@ -442,20 +456,13 @@ def _run_dask(store, missing, payload, scheduler, workers, progress, done_sample
                 try:
                     k, table, sec, cpu_s = fut.result()
                 except Exception as exc:            # a task that failed after its retries
-                    raise StudyInterrupted(done_before + written, store.n_chunks,
+                    raise StudyInterrupted(done_before + tally.written, store.n_chunks,
                                            f"a chunk failed on the cluster ({type(exc).__name__}"
                                            f": {exc})") from None
-                store.write_chunk(k, table)
-                written += 1
-                compute += sec
-                cpu += cpu_s
-                computed += table.num_rows
-                done_samples += table.num_rows
                 fut.release()
-                if progress:
-                    progress(done_samples, total)
+                tally.add(k, table, sec, cpu_s)
         except KeyboardInterrupt:
-            raise StudyInterrupted(done_before + written, store.n_chunks,
+            raise StudyInterrupted(done_before + tally.written, store.n_chunks,
                                    "interrupted") from None
         wall = time.perf_counter() - t0
         try:
@@ -469,4 +476,4 @@ def _run_dask(store, missing, payload, scheduler, workers, progress, done_sample
         client.close()
         if cluster is not None:
             cluster.close()
-    return compute, cpu, computed, memory, n_workers, where, t0, wall
+    return memory, n_workers, where, t0, wall
