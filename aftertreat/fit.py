@@ -42,7 +42,7 @@ from pathlib import Path
 import numpy as np
 
 from .bench import BenchReactor, parse_reactor, predict
-from .case import read_toml
+from .case import _unknown, read_toml
 from .catalyst import Catalyst, load_catalyst, parse_catalyst
 from .checks import number
 from .errors import InputError, did_you_mean
@@ -109,10 +109,7 @@ def _parameter(spec, i: int, cat_data: dict, file: str) -> FitParameter:
     pre = f"parameter[{i}]"
     if not isinstance(spec, dict):
         raise InputError("expected a [[parameter]] table", key=pre, file=file)
-    for k in spec:
-        if k not in _PARAM_KEYS:
-            raise InputError("unknown key; valid: " + ", ".join(sorted(_PARAM_KEYS))
-                             + did_you_mean(k, _PARAM_KEYS), key=f"{pre}.{k}", file=file)
+    _unknown(spec, _PARAM_KEYS, file, f"{pre}.")
     key = spec.get("key")
     rx, site = spec.get("reaction"), spec.get("site")
     if (rx is None) == (site is None):
@@ -160,10 +157,7 @@ def load_fit_spec(path: str | Path, output: str | Path | None = None) -> FitSpec
     file = str(path)
     data = read_toml(path)
     base = path.resolve().parent
-    for k in data:
-        if k not in _SPEC_KEYS:
-            raise InputError("unknown key; valid: " + ", ".join(sorted(_SPEC_KEYS))
-                             + did_you_mean(k, _SPEC_KEYS), key=k, file=file)
+    _unknown(data, _SPEC_KEYS, file, "")
     ck = data.get("catalyst")
     if not isinstance(ck, str):
         raise InputError("expected the key or file of the catalyst to calibrate",
@@ -252,6 +246,20 @@ def _set(table: dict, key: str, v: float) -> None:
         table[key] = v
 
 
+def _with_values(data: dict, parameters: list[FitParameter], values) -> dict:
+    """A copy of the catalyst ``data`` with each parameter set to its value."""
+    data = copy.deepcopy(data)
+    for p, v in zip(parameters, values):
+        _set(_table(data, p), p.key, float(v))
+    return data
+
+
+def _reactor_with(spec: FitSpec, data: dict) -> BenchReactor:
+    """The spec's bench reactor with the catalyst of ``data`` in its sample."""
+    cat = parse_catalyst(data, key=spec.catalyst.key, file=spec.catalyst.file)
+    return spec.reactor.with_catalyst(cat)
+
+
 def _table(data: dict, p: FitParameter) -> dict:
     if p.reaction is not None:
         return data["reaction"][_index(data, p.reaction)]
@@ -275,19 +283,15 @@ class _Model:
         self.converged = True
 
     def data_at(self, x) -> dict:
-        data = copy.deepcopy(self.base)
-        for p, xi in zip(self.spec.parameters, x):
-            _set(_table(data, p), p.key, p.from_x(xi))
-        return data
+        return _with_values(self.base, self.spec.parameters,
+                            [p.from_x(xi) for p, xi in zip(self.spec.parameters, x)])
 
     def x0(self) -> np.ndarray:
         return np.array([p.to_x(float(_get(_table(self.base, p), p.key)))
                          for p in self.spec.parameters])
 
     def predict(self, x) -> list[dict]:
-        data = self.data_at(x)
-        cat = parse_catalyst(data, key=self.spec.catalyst.key, file=self.spec.catalyst.file)
-        reactor = self.spec.reactor.with_catalyst(cat)
+        reactor = _reactor_with(self.spec, self.data_at(x))
         out, ok = [], True
         for e in self.spec.experiments:
             pr = predict(reactor, e)
@@ -322,10 +326,6 @@ class FittedParameter:
     log: bool
     at_bound: bool = False
     profiled: bool = False           # interval from the profile (strongly non-linear)
-
-    @property
-    def unit_note(self) -> str:
-        return "log-normal interval" if self.log else "symmetric interval"
 
     def to_dict(self) -> dict:
         return {"parameter": self.label, "value": self.value, "start": self.start,
@@ -553,8 +553,6 @@ def catalyst_file_text(res: FitResult) -> str:
         prov[top] = (f"fitted to {Path(spec.file).name} (sha256 {sha256_of(Path(spec.file))[:16]}, "
                      f"{day}): {fp.value:.6g}, 95 % interval {fp.lo95:.4g}..{fp.hi95:.4g}; "
                      f"data {files}")
-        if p.reaction is not None and p.key == "k_ref":
-            prov.setdefault("k_ref", prov[top])
     data["name"] = f"{data.get('name', spec.catalyst.key)} (fitted to {Path(spec.file).name})"
     data["fit"] = {
         "spec": str(Path(spec.file).resolve()), "spec_sha256": sha256_of(Path(spec.file)),
@@ -582,23 +580,17 @@ def write_catalyst(res: FitResult) -> Path:
         raise InputError("the new catalyst file exists already: it is never overwritten",
                          key="output", value=str(out), file=res.spec.file)
     text = catalyst_file_text(res)
-    parse_catalyst(read_toml_text(text), key=out.stem, file=str(out))   # it must load
+    import tomllib
+    parse_catalyst(tomllib.loads(text), key=out.stem, file=str(out))   # it must load
     write_atomic(out, text)
     return out
-
-
-def read_toml_text(text: str) -> dict:
-    import tomllib
-    return tomllib.loads(text)
 
 
 def replace_parameters(spec: FitSpec, values: dict[str, float]) -> FitSpec:
     """``spec`` with the catalyst's parameters set to ``values`` (label -> value), for making
     synthetic data from a known "true" set."""
-    data = copy.deepcopy(spec.catalyst_data)
-    for p in spec.parameters:
-        if p.label in values:
-            _set(_table(data, p), p.key, float(values[p.label]))
-    cat = parse_catalyst(data, key=spec.catalyst.key, file=spec.catalyst.file)
-    return dataclasses.replace(spec, catalyst=cat, catalyst_data=data,
-                               reactor=spec.reactor.with_catalyst(cat))
+    given = [p for p in spec.parameters if p.label in values]
+    data = _with_values(spec.catalyst_data, given, [values[p.label] for p in given])
+    reactor = _reactor_with(spec, data)
+    return dataclasses.replace(spec, catalyst=reactor.brick.catalysts[0], catalyst_data=data,
+                               reactor=reactor)

@@ -32,7 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .case import read_toml
+from .case import _unknown
 from .checks import number
 from .errors import InputError, did_you_mean
 from .species import INDEX
@@ -47,9 +47,6 @@ MEASURABLE = ("NO", "NO2", "NH3", "N2O")
 FEED_KEYS = {"NO_ppm": "NO", "NO2_ppm": "NO2", "NH3_ppm": "NH3", "N2O_ppm": "N2O",
              "O2_pct": "O2", "H2O_pct": "H2O"}
 _EXPERIMENT_KEYS = {"name", "kind", "data", "feed", "adsorb", "measured", "uncertainty"}
-
-# column unit conversions: our CSV quantities and their SI (or ppm) unit
-_COLUMN_UNITS = {"time": "s", "T": "K", "ppm": "ppm", "pct": "percent"}
 
 
 @dataclass
@@ -170,10 +167,7 @@ def read_experiment(spec: dict, i: int, base: Path, file: str,
     pre = f"experiment[{i}]"
     if not isinstance(spec, dict):
         raise InputError("expected an [[experiment]] table", key=pre, file=file)
-    for k in spec:
-        if k not in _EXPERIMENT_KEYS:
-            raise InputError("unknown key; valid: " + ", ".join(sorted(_EXPERIMENT_KEYS))
-                             + did_you_mean(k, _EXPERIMENT_KEYS), key=f"{pre}.{k}", file=file)
+    _unknown(spec, _EXPERIMENT_KEYS, file, f"{pre}.")
     kind = spec.get("kind")
     if kind not in KINDS:
         raise InputError(f"expected one of {', '.join(KINDS)}" + did_you_mean(str(kind), KINDS),
@@ -254,9 +248,3 @@ def read_experiment(spec: dict, i: int, base: Path, file: str,
     elif "adsorb" in spec:
         raise InputError("belongs to a tpd experiment", key=f"{pre}.adsorb", file=file)
     return exp
-
-
-def read_spec(path: str | Path) -> tuple[dict, Path]:
-    """The fit spec's TOML and its folder."""
-    p = Path(path)
-    return read_toml(p), p.resolve().parent
