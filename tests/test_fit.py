@@ -18,6 +18,21 @@ REACTOR = {"substrate": "coated", "cpsi": 400, "wall_mil": 4, "washcoat_um": 30,
            "length": "50 mm", "diameter": "25.4 mm", "cells": 4, "GHSV_per_h": 60000}
 
 
+def _catalyst_file(path: Path, name: str, valid_T_C, reactions, sites=()) -> Path:
+    """A test catalyst file: its reactions and sites with the required source and pores."""
+    data = {"name": name, "role": "SCR", "valid_T_C": list(valid_T_C),
+            "source": [{"key": "test", "authors": "test", "year": 2026, "title": "test",
+                        "journal": "test", "use": "test"}],
+            "pores": {"porosity": 0.4, "tortuosity": 3.0, "pore_diameter_nm": 200.0,
+                      "provenance": {"porosity": _PROV, "tortuosity": _PROV,
+                                     "pore_diameter_nm": _PROV}},
+            "reaction": list(reactions)}
+    if sites:
+        data["site"] = list(sites)
+    path.write_text(to_toml(data))
+    return path
+
+
 def _power_law_catalyst(tmp_path, two_parallel=False) -> Path:
     """A test catalyst: NO reduced by a first-order power law (optionally two identical ones
     in parallel: only the sum of their rate constants is seen by any data)."""
@@ -27,16 +42,8 @@ def _power_law_catalyst(tmp_path, two_parallel=False) -> Path:
                                                "orders": _PROV}}]
     if two_parallel:
         rx.append(dict(rx[0], name="reduction bis", k_ref=20.0))
-    data = {"name": "test power law", "role": "SCR", "valid_T_C": [150.0, 600.0],
-            "source": [{"key": "test", "authors": "test", "year": 2026, "title": "test",
-                        "journal": "test", "use": "test"}],
-            "pores": {"porosity": 0.4, "tortuosity": 3.0, "pore_diameter_nm": 200.0,
-                      "provenance": {"porosity": _PROV, "tortuosity": _PROV,
-                                     "pore_diameter_nm": _PROV}},
-            "reaction": rx}
     f = tmp_path / ("pl_two.toml" if two_parallel else "pl.toml")   # (loaded files are cached)
-    f.write_text(to_toml(data))
-    return f
+    return _catalyst_file(f, "test power law", (150.0, 600.0), rx)
 
 
 def _spec(tmp_path, catalyst, csv_text, params, kind="steady", extra=None, measured=("NO",)):
@@ -138,16 +145,8 @@ def _three_site_catalyst(tmp_path) -> Path:
                     "site": name,
                     "T_ref_C": 300.0, "provenance": {"A": _PROV, "E_kJ_mol": _PROV,
                                                      "alpha": _PROV}})
-    data = {"name": "three-site test", "role": "SCR", "valid_T_C": [50.0, 700.0],
-            "source": [{"key": "test", "authors": "test", "year": 2026, "title": "test",
-                        "journal": "test", "use": "test"}],
-            "pores": {"porosity": 0.4, "tortuosity": 3.0, "pore_diameter_nm": 200.0,
-                      "provenance": {"porosity": _PROV, "tortuosity": _PROV,
-                                     "pore_diameter_nm": _PROV}},
-            "site": sites, "reaction": rxs}
-    f = tmp_path / "three.toml"
-    f.write_text(to_toml(data))
-    return f
+    return _catalyst_file(tmp_path / "three.toml", "three-site test", (50.0, 700.0), rxs,
+                          sites)
 
 
 def _peaks(T, y):
