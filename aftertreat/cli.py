@@ -41,33 +41,41 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"aftertreat: {message} (see 'aftertreat --help')\n")
 
 
+_SET_HELP = ("override a case value by its dotted path, e.g. 'brick.SCR 1.length=700 mm' "
+             "(repeatable)")
+
+
+def _case_options(parser, case_help: str, set_help: str = _SET_HELP) -> None:
+    """The case file and the options every command on a case takes: --set, --json, --strict."""
+    parser.add_argument("case", help=case_help)
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                        help=set_help)
+    _json_option(parser)
+    parser.add_argument("--strict", action="store_true",
+                        help="an inlet temperature outside a catalyst's validity range is an "
+                             "error (default: a warning, and the rates are extrapolated)")
+
+
+def _json_option(parser) -> None:
+    parser.add_argument("--json", action="store_true",
+                        help="one JSON object on stdout, nothing else")
+
+
 def _build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="aftertreat", description="Size SCR and ammonia-slip catalysts behind "
                 "ammonia-fuelled engines and turbines.")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
     rn = sub.add_parser("run", help="evaluate a duty-cycle case: every mode, cycle emissions, "
                         "limits")
-    rn.add_argument("case", help="case file (TOML) with [engine], [cycle], [engine_out] ...")
-    rn.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                    help="override a case value by its dotted path, e.g. "
-                         "'brick.SCR 1.length=700 mm' (repeatable)")
-    rn.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
-    rn.add_argument("--strict", action="store_true",
-                    help="an inlet temperature outside a catalyst's validity range is an error "
-                         "(default: a warning, and the rates are extrapolated)")
+    _case_options(rn, "case file (TOML) with [engine], [cycle], [engine_out] ...")
     rn.add_argument("--report", metavar="DIR", help="write tables, plots, sources, the case as "
                     "run and the safety cautions into DIR")
     rn.add_argument("--move-old", action="store_true", help="when the --report folder exists "
                     "and is not empty, move it aside (renamed with the time) instead of refusing")
     sz = sub.add_parser("size", help="find the smallest SCR and slip catalyst that meet every "
                         "limit of a duty-cycle case")
-    sz.add_argument("case", help="case file (TOML) with [engine], [cycle], ... and [sizing]")
-    sz.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                    help="override a case value by its dotted path (repeatable)")
-    sz.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
-    sz.add_argument("--strict", action="store_true",
-                    help="an inlet temperature outside a catalyst's validity range is an error "
-                         "(default: a warning, and the rates are extrapolated)")
+    _case_options(sz, "case file (TOML) with [engine], [cycle], ... and [sizing]",
+                  "override a case value by its dotted path (repeatable)")
     sz.add_argument("--report", metavar="DIR", help="write the sizing curves (CSV, PNG) and the "
                     "report of the sized design into DIR")
     sz.add_argument("--move-old", action="store_true", help="when the --report folder exists "
@@ -83,10 +91,9 @@ def _build_parser() -> argparse.ArgumentParser:
                     help="with --confidence: the address of an existing Dask scheduler")
     st = sub.add_parser("study", help="run the case's [study]: sweeps and Monte Carlo over "
                         "uncertainties, on Dask; probability of compliance and sensitivity")
-    st.add_argument("case", help="duty-cycle case file (TOML) with a [study] table")
-    st.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                    help="override a case value by its dotted path, e.g. study.samples=500 "
-                         "(repeatable)")
+    _case_options(st, "duty-cycle case file (TOML) with a [study] table",
+                  "override a case value by its dotted path, e.g. study.samples=500 "
+                  "(repeatable)")
     st.add_argument("--out", metavar="DIR", help="the study folder: Parquet dataset, summary, "
                     "figures (default: <case name>_study in the current folder)")
     st.add_argument("--resume", action="store_true", help="continue the study in --out: "
@@ -96,19 +103,8 @@ def _build_parser() -> argparse.ArgumentParser:
                     "127.0.0.1)")
     st.add_argument("--workers", type=_workers, metavar="N", help="local Dask workers (default "
                     "one per core); 0 runs in this process without Dask")
-    st.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
-    st.add_argument("--strict", action="store_true",
-                    help="an inlet temperature outside a catalyst's validity range is an error "
-                         "(default: a warning, and the rates are extrapolated)")
     pt = sub.add_parser("point", help="solve the catalyst train at the exhaust state of a case")
-    pt.add_argument("case", help="case file (TOML)")
-    pt.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                    help="override a case value by its dotted path, e.g. "
-                         "'brick.SCR 1.length=700 mm' (repeatable)")
-    pt.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
-    pt.add_argument("--strict", action="store_true",
-                    help="an inlet temperature outside a catalyst's validity range is an error "
-                         "(default: a warning, and the rates are extrapolated)")
+    _case_options(pt, "case file (TOML)")
     fi = sub.add_parser("fit", help="calibrate a catalyst's rate parameters to lab-reactor "
                         "data: a new catalyst file with 95 %% intervals")
     fi.add_argument("spec", help="fit spec (TOML) with catalyst, [reactor], [[experiment]] and "
@@ -117,7 +113,7 @@ def _build_parser() -> argparse.ArgumentParser:
                     "output); never overwritten")
     fi.add_argument("--report", metavar="DIR", help="the fit folder: tables, correlation, "
                     "figures (default: <new file>_fit beside it)")
-    fi.add_argument("--json", action="store_true", help="one JSON object on stdout, nothing else")
+    _json_option(fi)
     so = sub.add_parser("sources", help="list the sources behind a case's numbers: catalysts, "
                         "correlations, cycle and limits")
     so.add_argument("case", help="case file (TOML)")
