@@ -13,9 +13,8 @@ temperature):
 
 * steady points: the sample is held at the row's T through a can heat-loss coefficient of
   1e6 W/(m2 K) to a furnace at that T (reaction heat of ppm-level feeds is then invisible);
-* time runs (tpd, step): the sample follows the gas temperature of each row, its heat capacity
-  set to 10 kJ/(m3 K) (the least a brick takes; a real substrate has some 500-2000), so that it
-  lags the gas by about a second or less.
+* time runs (tpd, step): the sample is isothermal at each row's temperature (linear between
+  rows), in the tanks-in-series model of :func:`_timed`.
 
 Each experiment gives the model's outlet ppm (wet) at the measured rows, species by species, in
 the order of :attr:`Experiment.measured`; :func:`predict` counts the model solves it makes.
@@ -49,8 +48,6 @@ O2_FLOOR = 1e-6
 RTOL = 1e-5
 #: the furnace hold of a steady point [W/(m2 K)] (see the module docstring)
 HOLD_W_M2K = 1e6
-#: heat capacity of the sample in time runs [kJ/(m3 K) of brick] (see the module docstring)
-FOLLOW_GAS_KJ_M3K = 10.0
 
 
 @dataclass
@@ -75,10 +72,6 @@ class BenchReactor:
 
     def steady_brick(self, T: float) -> Brick:
         return dataclasses.replace(self.brick, heat_loss_W_m2K=HOLD_W_M2K, T_ambient=T)
-
-    def time_brick(self) -> Brick:
-        return dataclasses.replace(self.brick, heat_loss_W_m2K=0.0,
-                                   heat_capacity_kJ_m3K=FOLLOW_GAS_KJ_M3K)
 
 
 def parse_reactor(table, file: str, catalyst) -> BenchReactor:
