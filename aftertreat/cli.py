@@ -737,15 +737,16 @@ def _fit(args) -> int:
     from .fit_report import print_fit, write_fit_folder
     from .output import to_json
     from .report import StagedFolder, check_report_folder
-    spec = load_fit_spec(args.spec, output=args.out)
+    # --out is relative to where the command runs (the spec's own output key to the spec)
+    spec = load_fit_spec(args.spec, output=None if args.out is None else Path(args.out).resolve())
     folder = args.report or str(spec.output.with_name(spec.output.stem + "_fit"))
     check_report_folder(folder)
     res = _with_status(args, "fitting", lambda p: fit(spec, progress=p))
     written = None
+    with StagedFolder(folder) as tmp:        # the report first: a failure leaves no new file
+        write_fit_folder(res, tmp)
     if res.converged:
         written = write_catalyst(res)
-    with StagedFolder(folder) as tmp:
-        write_fit_folder(res, tmp)
     if args.json:
         obj = res.to_json()
         obj["written"] = None if written is None else str(written)
@@ -825,8 +826,10 @@ def _catalysts(args) -> int:
         for i, label in enumerate(f["parameters"]):
             x, var = f["mean"][i], f["covariance"][i][i]
             ln = f["coordinates"][i] == "ln"
+            pinned = (f.get("pinned") or [True] * len(f["parameters"]))[i]
             F.add_row(escape(label), f"{(math.exp(x) if ln else x):.4g}",
                       f"{f['ci95_low'][i]:.4g}", f"{f['ci95_high'][i]:.4g}",
+                      "not pinned (bounds)" if not pinned else
                       f"{math.sqrt(var) * 100:.2g} % (ln)" if ln else f"{math.sqrt(var):.3g}")
         con.print(F)
         con.print(escape("The file's [fit] table holds the covariance of these values (for studies)."))

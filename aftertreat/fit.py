@@ -47,6 +47,7 @@ from .catalyst import Catalyst, load_catalyst, parse_catalyst
 from .checks import number
 from .errors import InputError, did_you_mean
 from .labdata import Experiment, read_experiment, sha256_of
+from .published import predict_published, read_published
 from .units import ZERO_C_K
 
 __all__ = ["FitSpec", "FitParameter", "FitResult", "load_fit_spec", "fit"]
@@ -61,6 +62,10 @@ SITE_KEYS = {"capacity_mol_m3": True}
 Z95 = 1.959963984540054          # two-sided 95 % point of the standard normal
 CORRELATION_WARN = 0.95
 SINGULAR_WARN = 1e-4
+#: a parameter is pinned by the data when its weighted residuals alone would give a +-2 sigma
+#: range narrower than its bounds: |J_i| (hi - lo) > 4 (J_i its Jacobian column, in the fitted
+#: coordinate); otherwise the bounds, not the data, hold it
+UNPINNED = 4.0
 
 
 @dataclass
@@ -172,11 +177,17 @@ def load_fit_spec(path: str | Path, output: str | Path | None = None) -> FitSpec
         raise InputError("expected a single-layer catalyst file (fit each layer on its own)",
                          key="catalyst", value=ck, file=file)
     cat_data = read_toml(cat.file)
-    reactor = parse_reactor(data.get("reactor"), file, cat)
+    reactor = (parse_reactor(data.get("reactor"), file, cat) if "reactor" in data
+               or not all(isinstance(e, dict) and e.get("kind") == "published"
+                          for e in data.get("experiment") or [{}]) else None)
     exps = data.get("experiment")
     if not isinstance(exps, list) or not exps:
         raise InputError("expected at least one [[experiment]]", key="experiment", file=file)
-    experiments = [read_experiment(e, i, base, file, cat.valid_T) for i, e in enumerate(exps)]
+    experiments = [read_published(e, i, base, file, cat, reactor)
+                   if isinstance(e, dict) and e.get("kind") == "published"
+                   else read_experiment(e, i, base, file, cat.valid_T) for i, e in enumerate(exps)]
+    if reactor is None:                      # every experiment brings its own test conditions
+        reactor = experiments[0].reactor
     pars = data.get("parameter")
     if not isinstance(pars, list) or not pars:
         raise InputError("expected at least one [[parameter]] to fit", key="parameter",
@@ -293,11 +304,15 @@ class _Model:
     def predict(self, x) -> list[dict]:
         reactor = _reactor_with(self.spec, self.data_at(x))
         out, ok = [], True
+        cat = reactor.brick.catalysts[0]
+        self.raw = []
         for e in self.spec.experiments:
-            pr = predict(reactor, e)
+            pr = (predict_published(lambda r: r.with_catalyst(cat), e) if e.kind == "published"
+                  else predict(reactor, e))
             self.solves += pr.solves
             ok &= pr.converged
             out.append(pr.outlet_ppm)
+            self.raw.append(getattr(pr, "raw", None))
         self.converged = ok
         return out
 
@@ -326,12 +341,13 @@ class FittedParameter:
     log: bool
     at_bound: bool = False
     profiled: bool = False           # interval from the profile (strongly non-linear)
+    pinned: bool = True              # False: no active residual depends on it (bounds shown)
 
     def to_dict(self) -> dict:
         return {"parameter": self.label, "value": self.value, "start": self.start,
                 "se_fitted_coordinate": self.se_x, "coordinate": "ln" if self.log else "linear",
                 "ci95_low": self.lo95, "ci95_high": self.hi95, "at_bound": self.at_bound,
-                "interval_from_profile": self.profiled}
+                "interval_from_profile": self.profiled, "pinned_by_data": self.pinned}
 
 
 @dataclass
@@ -346,11 +362,29 @@ class ExperimentFit:
     fitted: dict
     T_K: np.ndarray
     time_s: np.ndarray | None
+    targets: list | None = None      # kind "published": the targets and the model's values
+    model: np.ndarray | None = None
 
     def to_dict(self) -> dict:
-        return {"experiment": self.name, "kind": self.kind, "points": self.n_points,
-                "chi2": self.chi2, "chi2_per_point": self.chi2 / max(self.n_points, 1),
-                "rms_residual_ppm": self.rms_ppm}
+        d = {"experiment": self.name, "kind": self.kind, "points": self.n_points,
+             "chi2": self.chi2, "chi2_per_point": self.chi2 / max(self.n_points, 1),
+             "rms_residual_ppm": self.rms_ppm if self.targets is None else None}
+        if self.targets is not None:
+            d["targets"] = [{"quantity": t.quantity, "T_C": t.T_K - ZERO_C_K if t.site is None
+                             else None, "site": t.site, "sense": t.sense, "value": t.value,
+                             "sigma": t.sigma, "model": float(m), "holds": _holds(t, m),
+                             "reading": t.reading} for t, m in zip(self.targets, self.model)]
+        return d
+
+
+def _holds(t, m: float) -> bool:
+    """Whether the model's value ``m`` meets target ``t``: within 2 sigma for "=", within
+    0.1 sigma of the bound for a one-sided target (a hinge fit ends on the bound it holds)."""
+    if t.sense == ">=":
+        return bool(m >= t.value - 0.1 * t.sigma)
+    if t.sense == "<=":
+        return bool(m <= t.value + 0.1 * t.sigma)
+    return bool(abs(m - t.value) <= 2.0 * t.sigma)
 
 
 @dataclass
@@ -369,6 +403,7 @@ class FitResult:
     seconds: float
     converged: bool
     fitted_data: dict = field(default_factory=dict)
+    one_sided: bool = False          # intervals conditional, covariance diagonal (see fit)
 
     @property
     def reduced_chi2(self) -> float:
@@ -436,7 +471,18 @@ def fit(spec: FitSpec, *, progress=None) -> FitResult:
     chi2 = float(r @ r)
     n, k = r.size, len(pars)
     dof = n - k
-    cov, s_scaled = _covariance(best.jac)
+    # a parameter no active residual depends on (a statement only bounds it, or it enters no
+    # target) is not pinned: its "interval" is its bounds, its stored variance that of a
+    # uniform over them (so a study samples the whole allowed range), its correlations zero
+    col = np.linalg.norm(best.jac, axis=0)
+    pinned = col * (hi - lo) > UNPINNED
+    cov = np.zeros((k, k))
+    s_scaled = np.array([])
+    if pinned.any():
+        sub, s_scaled = _covariance(best.jac[:, pinned])
+        cov[np.ix_(pinned, pinned)] = sub
+    for i in np.flatnonzero(~pinned):
+        cov[i, i] = (hi[i] - lo[i]) ** 2 / 12.0
     se = np.sqrt(np.maximum(np.diag(cov), 0.0))
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = cov / np.outer(se, se)
@@ -444,22 +490,49 @@ def fit(spec: FitSpec, *, progress=None) -> FitResult:
     np.fill_diagonal(corr, 1.0)
     warnings = []
     fitted = []
+    # one-sided published statements make chi2 a hinge: the fit ends on a corner and neither
+    # the covariance nor the valley profile means much; the intervals are then the range of
+    # each parameter, the others held, over which chi2 rises by less than 3.84
+    one_sided = any(e.kind == "published" and any(t.sense != "=" for t in e.targets)
+                    for e in spec.experiments)
+    if one_sided:
+        warnings.append("one-sided published statements: each 95 % interval is the range of "
+                        "that parameter with the others held at the fit (conditional, narrower "
+                        "than a joint interval); the covariance is the local curvature only")
     for i, p in enumerate(pars):
         at_b = bool(np.isclose(x[i], lo[i], atol=1e-9 * (1 + abs(lo[i])))
                     or np.isclose(x[i], hi[i], atol=1e-9 * (1 + abs(hi[i]))))
         a, b, prof = x[i] - Z95 * se[i], x[i] + Z95 * se[i], False
-        if se[i] > 0 and np.isfinite(se[i]):
+        if one_sided:
+            # a hinge fit ends on an edge, where the Jacobian of a one-sided step may be 0:
+            # pinned is then whether the statements stop the parameter short of a bound
+            a, b = _axis_interval(model, x, i, chi2, lo, hi)
+            pinned[i] = a > lo[i] or b < hi[i]
+        elif not pinned[i]:
+            a, b = lo[i], hi[i]
+        elif se[i] > 0 and np.isfinite(se[i]):
             a, b, prof = _check_linearity(model, x, cov, i, chi2, a, b)
+        a, b = max(a, lo[i]), min(b, hi[i])
         fitted.append(FittedParameter(label=p.label, value=p.from_x(x[i]),
                                       start=p.from_x(x_start[i]), x=float(x[i]),
                                       se_x=float(se[i]), lo95=p.from_x(a), hi95=p.from_x(b),
-                                      log=p.log, at_bound=at_b, profiled=prof))
-        if at_b:
+                                      log=p.log, at_bound=at_b, profiled=prof,
+                                      pinned=bool(pinned[i])))
+        if not pinned[i]:
+            warnings.append(f"{p.label} is not pinned by the data (the data barely move it, "
+                            "or one-sided statements only bound it): its value is where the fit "
+                            "left it, meeting the statements, and its interval is its bounds")
+        elif at_b:
             warnings.append(f"{p.label} ended on its bound ({p.from_x(x[i]):.4g}): widen the "
                             "bounds or fix it; its interval is not meaningful")
         if prof:
             warnings.append(f"{p.label}: chi2 is far from quadratic over the interval; the "
                             "95 % interval is from the profile along its valley")
+    if one_sided:
+        # what a study samples: independent normals matching the conditional intervals (the
+        # local curvature at a hinge corner can be near-singular and would sample nonsense)
+        cov = np.diag([((p.to_x(f.hi95) - p.to_x(f.lo95)) / (2.0 * Z95)) ** 2
+                       for p, f in zip(pars, fitted)])
     for i in range(k):
         for j in range(i + 1, k):
             if abs(corr[i, j]) > CORRELATION_WARN:
@@ -467,10 +540,12 @@ def fit(spec: FitSpec, *, progress=None) -> FitResult:
                                 f"({corr[i, j]:+.3f}): the data pin down a combination of "
                                 "them, not each; fix one, or add data that separates them")
     if s_scaled.size and s_scaled.min() < SINGULAR_WARN * s_scaled.max():
-        _, _, Vt = np.linalg.svd(best.jac / np.maximum(np.linalg.norm(best.jac, axis=0),
-                                                       1e-300), full_matrices=False)
+        Jp = best.jac[:, pinned]
+        _, _, Vt = np.linalg.svd(Jp / np.maximum(np.linalg.norm(Jp, axis=0), 1e-300),
+                                 full_matrices=False)
         v = Vt[-1]
-        names = [pars[i].label for i in np.argsort(-np.abs(v))[:3] if abs(v[i]) > 0.2]
+        idx = np.flatnonzero(pinned)
+        names = [pars[idx[i]].label for i in np.argsort(-np.abs(v))[:3] if abs(v[i]) > 0.2]
         warnings.append("a near-singular direction (singular-value ratio "
                         f"{s_scaled.min() / s_scaled.max():.1e}) mixes " + ", ".join(names)
                         + ": the data cannot tell these apart")
@@ -483,16 +558,42 @@ def fit(spec: FitSpec, *, progress=None) -> FitResult:
                         "stopped early): do not use its numbers")
     pred = model.predict(x)
     exps = []
-    for e, pr in zip(spec.experiments, pred):
+    for e, pr, raw in zip(spec.experiments, pred, model.raw):
         res_e = np.concatenate([(pr[sp] - e.measured[sp]) / e.sigma[sp] for sp in e.measured])
         d = np.concatenate([pr[sp] - e.measured[sp] for sp in e.measured])
         exps.append(ExperimentFit(name=e.name, kind=e.kind, n_points=e.n_points,
                                   chi2=float(res_e @ res_e), rms_ppm=float(np.sqrt(np.mean(d ** 2))),
-                                  measured=e.measured, fitted=pr, T_K=e.T_K, time_s=e.time_s))
+                                  measured=e.measured, fitted=pr, T_K=e.T_K, time_s=e.time_s,
+                                  targets=e.targets, model=raw))
     return FitResult(spec=spec, parameters=fitted, covariance=cov, correlation=corr, chi2=chi2,
                      dof=dof, experiments=exps, warnings=warnings, solves=model.solves,
                      evaluations=model.calls, seconds=time.perf_counter() - t0,
-                     converged=converged, fitted_data=model.data_at(x))
+                     converged=converged, fitted_data=model.data_at(x), one_sided=one_sided)
+
+
+def _axis_interval(model: _Model, x, i, chi2, lo, hi) -> tuple[float, float]:
+    """The range of coordinate ``i`` (the others held at ``x``) over which chi2 rises by less
+    than 3.84, each end root-found, or the bound where it never does."""
+    from scipy.optimize import brentq
+
+    def rise(v):
+        xt = x.copy()
+        xt[i] = v
+        r = model.residuals(xt)
+        return float(r @ r) - chi2 - Z95 ** 2
+    ends = []
+    for end in (lo[i], hi[i]):
+        prev, step = x[i], 1e-3 * (end - x[i])
+        while True:                  # steps growing 4-fold from 1e-3 of the way to the bound
+            v = x[i] + step if abs(step) < abs(end - x[i]) else end
+            if rise(v) > 0:
+                ends.append(float(brentq(rise, prev, v, xtol=1e-4 * (hi[i] - lo[i]))))
+                break
+            if v == end:
+                ends.append(float(end))
+                break
+            prev, step = v, 4.0 * step
+    return ends[0], ends[1]
 
 
 def _check_linearity(model: _Model, x, cov, i, chi2, a, b):
@@ -537,38 +638,59 @@ def _check_linearity(model: _Model, x, cov, i, chi2, a, b):
 # the new catalyst file
 # ---------------------------------------------------------------------------------------------
 def catalyst_file_text(res: FitResult) -> str:
-    """The calibrated catalyst file: the original's tables with the fitted values, their
-    provenance ``fitted to <spec> (sha256 ..., date)`` and a ``[fit]`` table holding the
-    fitted coordinates, their covariance and the data's checksums (so that studies can sample
-    it)."""
+    """The calibrated catalyst file: the original's leading comments and tables with the
+    fitted values, their provenance ``fitted to <spec> (sha256 ..., date)`` and a ``[fit]``
+    table holding the fitted coordinates, their covariance and the data's checksums (so that
+    studies can sample it). Paths in ``[fit]`` are relative to the new file's folder."""
+    import os
     from .report import to_toml
     spec = res.spec
     data = copy.deepcopy(res.fitted_data)
     day = datetime.date.today().isoformat()
+    here = Path(spec.output).resolve().parent
+
+    def rel(f) -> str:
+        return Path(os.path.relpath(Path(f).resolve(), here)).as_posix()
     files = ", ".join(f"{Path(e.file).name} (sha256 {e.sha256[:16]})" for e in spec.experiments)
     for p, fp in zip(spec.parameters, res.parameters):
         t = _table(data, p)
         prov = t.setdefault("provenance", {})
         top = p.key.split(".", 1)[0]
+        what = (f"95 % interval {fp.lo95:.4g}..{fp.hi95:.4g}" if fp.pinned else
+                f"not pinned by the data: held only within its bounds {fp.lo95:.4g}..{fp.hi95:.4g}")
         prov[top] = (f"fitted to {Path(spec.file).name} (sha256 {sha256_of(Path(spec.file))[:16]}, "
-                     f"{day}): {fp.value:.6g}, 95 % interval {fp.lo95:.4g}..{fp.hi95:.4g}; "
-                     f"data {files}")
-    data["name"] = f"{data.get('name', spec.catalyst.key)} (fitted to {Path(spec.file).name})"
+                     f"{day}): {fp.value:.6g}, {what}; data {files}")
+    name = str(data.get("name", spec.catalyst.key))
+    if "(fitted to" not in name:
+        data["name"] = f"{name} (fitted to {Path(spec.file).name})"
     data["fit"] = {
-        "spec": str(Path(spec.file).resolve()), "spec_sha256": sha256_of(Path(spec.file)),
+        "spec": rel(spec.file), "spec_sha256": sha256_of(Path(spec.file)),
         "date": day, "parameters": [p.label for p in spec.parameters],
         "coordinates": ["ln" if p.log else "linear" for p in spec.parameters],
         "mean": [fp.x for fp in res.parameters],
         "covariance": [list(map(float, row)) for row in res.covariance],
         "ci95_low": [fp.lo95 for fp in res.parameters],
         "ci95_high": [fp.hi95 for fp in res.parameters],
+        "pinned": [fp.pinned for fp in res.parameters],
+        "covariance_basis": ("diagonal, from the conditional 95 % intervals (one-sided "
+                             "published statements)" if res.one_sided else
+                             "(J^T J)^-1 of the weighted residuals"),
         "chi2": res.chi2, "dof": res.dof,
-        "data": [{"file": str(Path(e.file).resolve()), "sha256": e.sha256}
-                 for e in spec.experiments]}
-    head = (f"# {data['name']}\n# written by 'aftertreat fit {Path(spec.file).name}' on {day} "
-            f"from {Path(spec.catalyst.file).name}; the [fit] table holds the fitted values'\n"
-            "# covariance. Fitted parameters are only as good as the data and the bench model "
-            "(docs/fitting.md).\n")
+        "data": [{"file": rel(e.file), "sha256": e.sha256} for e in spec.experiments]}
+    lead = []
+    for line in Path(spec.catalyst.file).read_text(encoding="utf-8").splitlines():
+        if not line.startswith("#"):
+            break
+        if "written by 'aftertreat fit" not in line and "[fit] table holds" not in line \
+                and "only as good as the data" not in line:
+            lead.append(line)
+    while lead and lead[-1].strip() == "#":
+        lead.pop()
+    head = ("\n".join(lead) + "\n#\n" if lead else "") + (
+        f"# written by 'aftertreat fit {Path(spec.file).name}' on {day} from "
+        f"{Path(spec.catalyst.file).name}; the [fit] table holds the fitted values'\n"
+        "# covariance. Fitted parameters are only as good as the data and the bench model "
+        "(docs/fitting.md).\n")
     return head + to_toml(data)
 
 

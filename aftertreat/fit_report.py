@@ -27,6 +27,9 @@ def figure_fit(res) -> bytes:
     axes = axes[:, 0]
     colours = {"NO": "tab:blue", "NO2": "tab:orange", "NH3": "tab:red", "N2O": "tab:purple"}
     for ax, e, spec_e in zip(axes, exps, res.spec.experiments):
+        if e.targets is not None:
+            _published_panel(ax, e)
+            continue
         x, label = _x_of(e)
         for sp, y in e.measured.items():
             ax.errorbar(x, y, yerr=spec_e.sigma[sp], fmt="o", ms=3, color=colours[sp],
@@ -42,12 +45,32 @@ def figure_fit(res) -> bytes:
     return _png(fig)
 
 
+def _published_panel(ax, e) -> None:
+    """One experiment of published targets: each target's value (one-sided ones as a
+    triangle pointing where the statement holds) with its sigma, and the model's value."""
+    import numpy as np
+    x = np.arange(len(e.targets))
+    for i, (t, m) in enumerate(zip(e.targets, e.model)):
+        mk = {"=": "o", ">=": "^", "<=": "v"}[t.sense]
+        ax.errorbar([i], [t.value], yerr=[t.sigma], fmt=mk, ms=6, color="tab:blue",
+                    label="published (our reading)" if i == 0 else None)
+    ax.plot(x, e.model, "x", ms=9, mew=2, color="tab:red", label="model at the fit")
+    ax.set_xticks(x, [t.site if t.site is not None else f"{t.T_K - ZERO_C_K:.0f} C"
+                      + (" (difference)" if t.minus is not None else "") for t in e.targets],
+                  fontsize=7)
+    ax.set_ylabel(e.targets[0].quantity.replace("_pct", " [%]").replace("_C", " [degC]"))
+    ax.set_title(f"{e.name} (published): chi2 {e.chi2:.1f} over {e.n_points} targets",
+                 fontsize=9)
+    ax.legend(fontsize=7)
+    ax.grid(alpha=0.3)
+
+
 def figure_residuals(res) -> bytes:
     """PNG: weighted residuals (model - measured) / sigma against temperature, every
     experiment and species, with the +-2 band."""
     from .plots import _plt, _png
     fig, ax = _plt().subplots(figsize=(8.0, 3.5))
-    markers = {"steady": "o", "lightoff": "s", "tpd": "^", "step": "v"}
+    markers = {"steady": "o", "lightoff": "s", "tpd": "^", "step": "v", "published": "D"}
     for e, spec_e in zip(res.experiments, res.spec.experiments):
         for sp, y in e.measured.items():
             r = (e.fitted[sp] - y) / spec_e.sigma[sp]
@@ -104,7 +127,8 @@ def print_fit(res, written: Path | None, folder: str | None) -> None:
     for c in ("parameter", "start", "fitted", "95 % low", "95 % high", "note"):
         t.add_column(c, justify="left" if c in ("parameter", "note") else "right")
     for p in res.parameters:
-        note = "; ".join(x for x in ("at bound" if p.at_bound else "",
+        note = "; ".join(x for x in ("not pinned: bounds shown" if not p.pinned else "",
+                                     "at bound" if p.at_bound and p.pinned else "",
                                      "profile" if p.profiled else "") if x)
         t.add_row(escape(p.label), f"{p.start:.4g}", f"{p.value:.4g}", f"{p.lo95:.4g}",
                   f"{p.hi95:.4g}", note)
@@ -123,8 +147,23 @@ def print_fit(res, written: Path | None, folder: str | None) -> None:
         G.add_column(c, justify="left" if c in ("experiment", "kind") else "right")
     for e in res.experiments:
         G.add_row(escape(e.name), e.kind, str(e.n_points), f"{e.chi2:.1f}",
-                  f"{e.chi2 / max(e.n_points, 1):.2f}", f"{e.rms_ppm:.2f}")
+                  f"{e.chi2 / max(e.n_points, 1):.2f}",
+                  f"{e.rms_ppm:.2f}" if e.targets is None else "-")
     con.print(G)
+    for e in res.experiments:
+        if e.targets is None:
+            continue
+        P = Table(title=f"{escape(e.name)}: published targets (our readings) and the model",
+                  box=box.SIMPLE_HEAD, pad_edge=False)
+        for c in ("quantity", "at", "target", "model", "holds"):
+            P.add_column(c, justify="left" if c in ("quantity", "at", "holds") else "right")
+        for t, m in zip(e.targets, e.model):
+            from .fit import _holds
+            at = f"site {t.site}" if t.site else f"{t.T_K - ZERO_C_K:.0f} degC" + (
+                " (difference)" if t.minus is not None else "")
+            P.add_row(t.quantity, at, f"{t.sense} {t.value:g} +- {t.sigma:g}", f"{m:.2f}",
+                      "yes" if _holds(t, m) else "[red]no[/red]")
+        con.print(P)
     con.print(f"chi2 {res.chi2:.1f} for {res.dof} degrees of freedom (reduced "
               f"{res.reduced_chi2:.2f}); {res.evaluations} residual evaluations, "
               f"{res.solves} model solves, {res.seconds:.1f} s")

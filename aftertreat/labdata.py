@@ -19,6 +19,8 @@ Experiment kinds:
 ``step``
     An NH3 step (breakthrough) onto a clean sample at the rows' ``T``; measured outlet NH3 (and
     NO where given).
+``published``
+    A published behaviour held in an evidence file (TOML, not CSV): :mod:`aftertreat.published`.
 
 Every measured value carries its uncertainty, sigma = abs_ppm + rel x |value| (one standard
 deviation, as stated by the spec; the fit weights residuals by 1 / sigma).
@@ -40,7 +42,7 @@ from .units import ZERO_C_K
 
 __all__ = ["KINDS", "MEASURABLE", "Experiment", "read_experiment", "read_lab_csv"]
 
-KINDS = ("steady", "lightoff", "tpd", "step")
+KINDS = ("steady", "lightoff", "tpd", "step", "published")
 #: species whose outlet a fit can compare (ppm, on the wet basis of the bench gas)
 MEASURABLE = ("NO", "NO2", "NH3", "N2O")
 #: feed keys of a spec and their unit: species in ppm, O2 and H2O in percent
@@ -69,6 +71,12 @@ class Experiment:
     adsorb_T_K: float | None = None
     adsorb_feed: dict[str, float] | None = None
     uncertainty: tuple[float, float] = (0.0, 0.0)   # (abs ppm, relative)
+    # kind "published" (aftertreat.published): the targets, the source, the evidence file's
+    # own reactor and TPD protocol
+    targets: list | None = None
+    source: dict | None = None
+    reactor: object | None = None
+    tpd: dict | None = None
 
     @property
     def n_points(self) -> int:
