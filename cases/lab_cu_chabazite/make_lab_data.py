@@ -11,9 +11,9 @@ from aftertreat.fit import load_fit_spec, replace_parameters
 
 HERE = Path(__file__).resolve().parent
 #: the invented "true" catalyst (values at the shipped file's T_ref); a fit should land near them
-TRUTH = {"standard SCR: k_ref": 420.0, "standard SCR: E_kJ_mol": 58.0,
-         "NH3 desorption: k_ref": 0.15, "NH3 desorption: E_kJ_mol": 140.0,
-         "NH3 desorption: alpha": 0.3, "site S1: capacity_mol_m3": 1200.0}
+TRUTH = {"standard SCR: k_ref": 2000.0, "standard SCR: E_kJ_mol": 58.0,
+         "NH3 desorption (weak): E_kJ_mol": 118.0, "NH3 desorption: E_kJ_mol": 142.0,
+         "NH3 desorption (Bronsted): E_kJ_mol": 178.0, "site S1: capacity_mol_m3": 550.0}
 SEED = 20261203
 
 
