@@ -698,14 +698,21 @@ ITEM_KEYS: tuple[Key, ...] = tuple([
     Key("study.uncertain[]", "hi", NUMBER, "High end of a uniform or triangular distribution.",
         allowed="above `lo`", default="required for `uniform` and `triangular`",
         cases=(CYCLE,)),
+    Key("study.correlated[]", "from_fit", TEXT, "Take the parameters, mean and covariance "
+        "from this catalyst's `[fit]` table (written by `aftertreat fit`).",
+        allowed="the key of a catalyst of the train whose file has a `[fit]` table; a fitted "
+        "`k_ref` in ln coordinates becomes `ln_k_ref`, a capacity `ln_capacity_mol_m3`; "
+        "instead of `mean` and `covariance`", default="none", cases=(CYCLE,)),
     Key("study.correlated[]", "parameters", TEXTS, "The catalyst parameters, as paths "
         "`catalyst.<key>.<reaction>.<parameter>`.", allowed="distinct; parameters among "
-        "{catalyst_params}", default="required", cases=(CYCLE,)),
+        "{catalyst_params}; with `from_fit`, a choice among the fitted ones",
+        default="required (with `from_fit`: all fitted ones a study can vary)", cases=(CYCLE,)),
     Key("study.correlated[]", "mean", NUMBERS, "Mean of each parameter.",
-        allowed="one number per parameter", default="required", cases=(CYCLE,)),
+        allowed="one number per parameter", default="required unless `from_fit`",
+        cases=(CYCLE,)),
     Key("study.correlated[]", "covariance", MATRIX, "Covariance matrix of the parameters, "
         "row by row.", allowed="a list of lists, k x k, symmetric and positive semi-definite",
-        default="required", cases=(CYCLE,)),
+        default="required unless `from_fit`", cases=(CYCLE,)),
     Key("study.correlated[]", "how", TEXT, "How the drawn values act on the catalyst's "
         "parameters.", choices=("set", "scale", "shift"), default='`"set"`',
         cases=(CYCLE,)),

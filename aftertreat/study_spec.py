@@ -53,7 +53,7 @@ _CORRELATED = set(schema.item_keys("study.correlated[]"))
 #: how a sampled value acts on the case value
 HOWS = ("set", "scale", "shift")
 #: catalyst parameters a study may vary: reaction parameters, and the site capacity
-CATALYST_PARAMS = ("k_ref", "ln_k_ref", "E_kJ_mol", "capacity_mol_m3")
+CATALYST_PARAMS = ("k_ref", "ln_k_ref", "E_kJ_mol", "capacity_mol_m3", "ln_capacity_mol_m3")
 #: samples of a study that does not say (a power of 2, so that a Sobol design takes it too)
 DEFAULT_SAMPLES = 256
 #: the seed of a study that does not say (recorded with every row)
@@ -373,6 +373,9 @@ def _perturbed(cat, changes: dict):
         if item.startswith("site.") and param == "capacity_mol_m3":
             s = mech.sites.index(item[5:])
             cap[s] = act(cap[s], how, value)
+        elif item.startswith("site.") and param == "ln_capacity_mol_m3":
+            s = mech.sites.index(item[5:])
+            cap[s] = math.exp(act(math.log(cap[s]), how, value))
     for r in reactions:
         if not (math.isfinite(r.law.k_ref) and r.law.k_ref > 0 and r.law.E >= 0):
             raise InputError(f"reaction '{r.name}': expected k_ref > 0 and E_kJ_mol >= 0, got "
@@ -581,10 +584,59 @@ def _uncertain(item, i, file, n_modes, mode_names) -> Variable:
                     n_modes=n_modes)
 
 
-def _correlated(item, i, file) -> CorrelatedBlock:
+def _from_fit(item, key: str, file: str, train) -> dict:
+    """``from_fit = "<catalyst key>"``: the parameters, mean and covariance of that catalyst's
+    ``[fit]`` table (what ``aftertreat fit`` wrote), as study paths: a fitted ``k_ref`` in ln
+    coordinates becomes ``.ln_k_ref``, a capacity ``.ln_capacity_mol_m3``; ``parameters``, if
+    given, picks some of them (by study path)."""
+    ck = item.get("from_fit")
+    cats = {c.key: c for b in train.bricks for c in b.catalysts}
+    if not isinstance(ck, str) or ck not in cats:
+        raise InputError("expected the key of a catalyst of the train; its catalysts: "
+                         + ", ".join(sorted(cats)) + did_you_mean(str(ck), cats),
+                         key=key + ".from_fit", value=ck, file=file)
+    fit = cats[ck].fit
+    if not fit:
+        raise InputError("this catalyst file has no [fit] table (write one with aftertreat "
+                         "fit), so there is no covariance to sample", key=key + ".from_fit",
+                         value=ck, file=cats[ck].file)
+    if "mean" in item or "covariance" in item:
+        raise InputError("give from_fit or mean and covariance, not both", key=key,
+                         file=file)
+    paths = []
+    for label, coord in zip(fit["parameters"], fit["coordinates"]):
+        head, param = label.rsplit(": ", 1)
+        ln = coord == "ln"
+        if head.startswith("site "):
+            base = f"catalyst.{ck}.site.{head[5:]}."
+            paths.append(base + ("ln_capacity_mol_m3" if ln else param))
+        elif param in ("k_ref", "E_kJ_mol"):
+            paths.append(f"catalyst.{ck}.{head}." + ("ln_k_ref" if ln and param == "k_ref"
+                                                     else param))
+        else:
+            paths.append(None)                   # a fitted parameter a study cannot vary
+    mean = np.asarray(fit["mean"], dtype=float)
+    C = np.asarray(fit["covariance"], dtype=float)
+    want = item.get("parameters")
+    if want is None:
+        keep = [j for j, p in enumerate(paths) if p is not None]
+    else:
+        if not isinstance(want, list) or not all(w in paths for w in want):
+            raise InputError("expected study paths of the catalyst's fitted parameters: "
+                             + ", ".join(p for p in paths if p), key=key + ".parameters",
+                             value=want, file=file)
+        keep = [paths.index(w) for w in want]
+    return {"parameters": [paths[j] for j in keep], "mean": [float(mean[j]) for j in keep],
+            "covariance": [[float(C[a, b]) for b in keep] for a in keep],
+            "how": item.get("how", "set")}
+
+
+def _correlated(item, i, file, train=None) -> CorrelatedBlock:
     key = f"study.correlated[{i}]"
     from .case import _unknown
     _unknown(item, _CORRELATED, file, key + ".")
+    if isinstance(item, dict) and "from_fit" in item:
+        item = _from_fit(item, key, file, train)
     names = item.get("parameters")
     if not isinstance(names, list) or not names or not all(
             isinstance(n, str) and n.startswith("catalyst.") for n in names) \
@@ -631,8 +683,9 @@ def _check_catalyst_path(path, how, train, key, file) -> None:
                          value=path, file=file)
     mech = cats[ck].mechanism
     if item.startswith("site."):
-        if item[5:] not in mech.sites or param != "capacity_mol_m3":
-            raise InputError("expected catalyst.<key>.site.<site>.capacity_mol_m3 with a site "
+        if item[5:] not in mech.sites or param not in ("capacity_mol_m3", "ln_capacity_mol_m3"):
+            raise InputError("expected catalyst.<key>.site.<site>.capacity_mol_m3 (or "
+                             "ln_capacity_mol_m3) with a site "
                              "of the catalyst: " + ", ".join(mech.sites), key=key + ".path",
                              value=path, file=file)
         return
@@ -708,7 +761,8 @@ def parse_study(data: dict, file: str, n_modes: int, mode_names: list[str],
                    for i, x in enumerate(_items(s, "sweep", file)))
     unc = tuple(_uncertain(x, i, file, n_modes, mode_names)
                 for i, x in enumerate(_items(s, "uncertain", file)))
-    cor = tuple(_correlated(x, i, file) for i, x in enumerate(_items(s, "correlated", file)))
+    cor = tuple(_correlated(x, i, file, train)
+                for i, x in enumerate(_items(s, "correlated", file)))
     spec = StudySpec(design=design, samples=samples, seed=seed, chunk_size=chunk, sweeps=sweeps,
                      uncertain=unc, correlated=cor, table=copy.deepcopy(s))
     names = spec.input_names()

@@ -512,3 +512,39 @@ def test_an_existing_cluster_by_its_address(tmp_path):
         with Client(cluster.scheduler_address) as c:      # still up after the study
             assert len(c.scheduler_info()["workers"]) == 2
     assert _table(tmp_path / "one").equals(_table(tmp_path / "ext"))
+
+
+def test_a_fitted_catalysts_covariance_is_sampled_by_name():
+    """``from_fit = "vanadia_extruded"`` takes the parameters, mean and covariance of that
+    catalyst's [fit] table (catalysts/vanadia_extruded.toml, written by aftertreat fit): ln
+    rate constants become ``ln_k_ref`` paths, and a drawn sample reaches the catalyst."""
+    import tomllib
+    fit = tomllib.loads((Path(__file__).resolve().parents[1] / "catalysts"
+                         / "vanadia_extruded.toml").read_text())["fit"]
+    case = load_run_case(D2, ['study.correlated=[{from_fit="vanadia_extruded"}]'])
+    (block,) = case.study.correlated
+    assert block.names[0] == "catalyst.vanadia_extruded.standard SCR.ln_k_ref"
+    assert len(block.names) == len(fit["parameters"])
+    assert list(block.cov.mean) == pytest.approx(fit["mean"])
+    assert np.array(block.cov.matrix) == pytest.approx(np.array(fit["covariance"]))
+    row = case.study.inputs([3])[0]
+    from aftertreat.study_spec import apply_inputs, perturb_train
+    from aftertreat.cyclecase import parse_run_case
+    data, cat = apply_inputs(strip(case.data), case.file, case.study.actions(), row)
+    train = perturb_train(parse_run_case(data, case.file).train, cat)
+    law = next(r.law for r in train.bricks[0].catalysts[0].mechanism.reactions
+               if r.name == "standard SCR")
+    assert law.k_ref == pytest.approx(math.exp(row[block.names[0]]))
+
+
+@pytest.mark.parametrize("item, key", [
+    ('{from_fit="no_such"}', "study.correlated[0].from_fit"),
+    ('{from_fit="platinum_alumina", mean=[1.0]}', "study.correlated[0]"),
+    ('{from_fit="vanadia_extruded", parameters=["catalyst.vanadia_extruded.x.k_ref"]}',
+     "study.correlated[0].parameters"),
+])
+def test_bad_from_fit_exits_2(item, key, capsys, tmp_path):
+    code = cli.main(["study", str(D2), "--out", str(tmp_path / "s"), "--workers", "0",
+                     "--set", f"study.correlated=[{item}]"])
+    err = capsys.readouterr().err
+    assert code == 2 and len(err.strip().splitlines()) == 1 and f"'{key}'" in err, err
