@@ -708,6 +708,15 @@ def _check_against_case(data, file, actions, base_train, where: dict) -> None:
     for name, paths, how, mode, unit, n_modes, values in actions:
         key = where[name]
         for path in paths:
+            method = (base.get("dosing") or {}).get("method", "none")
+            if path == "dosing.ANR" and method == "none" and not any(
+                    "dosing.method" in a[1] for a in actions):
+                # the case would accept it and every sample would be the same: a study input
+                # that changes nothing is a mistake to say, not to run
+                raise InputError("the ANR has no effect while dosing.method is \"none\" (the "
+                                 "engine's own NH3 is the only reductant): set dosing.method to "
+                                 "\"NH3\" or \"urea\", or vary something else",
+                                 key=key + ".path", value=path, file=file)
             if path.startswith("catalyst."):
                 _check_catalyst_path(path, how, base_train, key, file)
             elif how != "set" or mode is not None:

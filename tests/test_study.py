@@ -221,6 +221,9 @@ _UNC = 'study.uncertain=[{path="engine_out.NOx_ppm", how="scale", distribution="
     (["study.smaples=10", _UNC], "study.smaples"),
     (['study.correlated=[{parameters=["catalyst.vanadia_extruded.standard SCR.ln_k_ref"], '
       'mean=[5.5], covariance=[[-0.1]]}]'], "study.correlated[0].covariance"),
+    # the demo doses nothing: an ANR sweep would change no sample
+    (['study.design="grid"', 'study.sweep=[{path="dosing.ANR", lo=0.9, hi=1.1, points=3}]'],
+     "study.sweep[0].path"),
 ])
 def test_bad_study_spec_exits_2_naming_the_key(sets, key, capsys, tmp_path):
     """Bad input: exit 2, one line naming the key (our contract, docs/conventions.md)."""
