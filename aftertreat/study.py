@@ -441,7 +441,7 @@ def _run_dask(tally: _Tally, missing, payload, scheduler, workers, done_before):
     futures = []
     try:
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
-        remote = client.scatter(payload, broadcast=True)
+        remote = client.scatter(payload, broadcast=True, hash=False)   # see study_sizing._Pool
         if missing:
             client.run(_warm, payload)
             if progress:

@@ -117,7 +117,11 @@ class _Pool:
         from .study import _run_chunk
         if self.client is None:
             return [_run_chunk(payload, k, idx)[1] for k, idx in enumerate(chunks)]
-        remote = self.client.scatter(payload, broadcast=True)
+        # a fresh random key per candidate (hash=False) and released at the end: scattering
+        # under a content-hash key that an earlier, released scatter used can cancel the new
+        # tasks with "lost dependencies" (seen here on the third candidate of the demo;
+        # dask/distributed issue 4612)
+        remote = self.client.scatter(payload, broadcast=True, hash=False)
         futs = [self.client.submit(_run_chunk, remote, k, idx, pure=False, retries=2)
                 for k, idx in enumerate(chunks)]
         out = {}
@@ -129,6 +133,7 @@ class _Pool:
             for f in futs:
                 if not f.done():
                     f.cancel()
+            self.client.cancel([remote])
         return [out[k] for k in range(len(chunks))]
 
 
