@@ -174,6 +174,16 @@ def main(argv: list[str] | None = None) -> int:
         return _fail(1, str(exc))
     except KeyboardInterrupt:
         return _fail(1, "interrupted")
+    except Exception as exc:
+        if type(exc).__module__.split(".")[0] not in ("distributed", "dask"):
+            raise
+        # the cluster lost work beyond its retries (killed workers, a lost node): not the
+        # user's input, and what finished is kept (a study's Parquet parts)
+        again = (" run the same command again with --resume: finished chunks are kept"
+                 if args.command == "study" else " run it again")
+        return _fail(1, f"the Dask cluster lost work ({type(exc).__name__}: "
+                        f"{str(exc).splitlines()[0][:160] if str(exc) else 'no detail'});"
+                        + again)
     finally:
         set_strict_temperature_range(False)       # the flag holds for this command only
     return 0

@@ -551,3 +551,18 @@ def test_bad_from_fit_exits_2(item, key, capsys, tmp_path):
                      "--set", f"study.correlated=[{item}]"])
     err = capsys.readouterr().err
     assert code == 2 and len(err.strip().splitlines()) == 1 and f"'{key}'" in err, err
+
+
+def test_a_cluster_that_loses_work_gives_one_line_not_a_traceback(monkeypatch, capsys):
+    """Work lost beyond Dask's retries (killed workers, a lost node) is not bad input: exit 1,
+    one line that says what to do (a study resumes from its finished chunks)."""
+    class LostWork(Exception):
+        pass
+    LostWork.__module__ = "distributed.client"
+
+    def boom(args):
+        raise LostWork("chunk 3 cancelled for reason: lost dependencies")
+    monkeypatch.setattr(cli, "_study", boom)
+    assert cli.main(["study", str(D2)]) == 1
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--resume" in err[0] and "lost dependencies" in err[0]
