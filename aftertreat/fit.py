@@ -28,7 +28,14 @@ conditional direction (the others moved as the covariance says): where chi2 ther
 than 1.92 or more than 7.68 instead of 3.84, the interval is recomputed as the points along that
 direction where chi2 rises by 3.84 (a profile along the linearised valley, root-found) and
 flagged. Identifiability: a pair with |correlation| > 0.95, or a near-singular direction of the
-column-scaled Jacobian (singular-value ratio below 1e-4), is warned about by name.
+column-scaled Jacobian (singular-value ratio below 1e-4), is warned about by name. A parameter
+the data barely move (|J_i| (hi - lo) <= 4) is "not pinned": its interval is its bounds.
+
+Published behaviour (experiments of kind ``published``, :mod:`aftertreat.published`): one-sided
+statements enter as hinges, so the fit ends on an edge; the intervals are then the range of
+each parameter, the others held at the fit, over which chi2 rises by less than 3.84 (open to a
+bound where nothing stops it), and the stored covariance is diagonal from those intervals
+(docs/fitting.md).
 """
 from __future__ import annotations
 
