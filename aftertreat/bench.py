@@ -77,6 +77,19 @@ class BenchReactor:
     def steady_brick(self, T: float) -> Brick:
         return dataclasses.replace(self.brick, heat_loss_W_m2K=HOLD_W_M2K, T_ambient=T)
 
+    def steady(self, x: dict[str, float], T: float, settings=None):
+        """A steady point: the sample held at ``T`` fed ``x``; (inlet stream, solution)."""
+        inlet = self.inlet(x, T)
+        return inlet, Train([self.steady_brick(T)]).solve(inlet, settings=settings)
+
+    def starved_half(self, T: float) -> float:
+        """c_half of :data:`STARVED_PPM` at ``T`` [mol/m3]."""
+        return STARVED_PPM * 1e-6 * self.p / (R_GAS * T)
+
+    def flow_m3_s(self, T: float) -> float:
+        """Volumetric flow Q = F R T / p of the feed at ``T`` [m3/s]."""
+        return self.total_mol_s * R_GAS * T / self.p
+
 
 def parse_reactor(table, file: str, catalyst) -> BenchReactor:
     """Validate the ``[reactor]`` table of a fit spec (see the module docstring)."""
@@ -146,8 +159,7 @@ def _steady(reactor, exp, settings) -> Prediction:
     out = {sp: np.empty(len(exp.T_K)) for sp in exp.measured}
     ok = True
     for j, T in enumerate(exp.T_K):
-        train = Train([reactor.steady_brick(float(T))])
-        sol = train.solve(reactor.inlet(exp.feed_at(j), float(T)), settings=settings)
+        _, sol = reactor.steady(exp.feed_at(j), float(T), settings)
         ok &= sol.converged
         for sp in out:
             out[sp][j] = _ppm(sol.outlet.F, sp)
@@ -186,7 +198,7 @@ def _timed(reactor, exp, coverage: bool = False, compiled: bool = True) -> Predi
     act_sp = np.flatnonzero(np.any(mech.nu_gas != 0, axis=0))     # species that react
     na, ns = len(act_sp), len(omega)
     nu_a, nu_s = mech.nu_gas[:, act_sp], mech.nu_site
-    F, p = reactor.total_mol_s, reactor.p
+    p = reactor.p
     t_data, T_data = exp.time_s, exp.T_K
     act = float(b.activity)
     evals = [0]
@@ -208,8 +220,7 @@ def _timed(reactor, exp, coverage: bool = False, compiled: bool = True) -> Predi
         c[:, act_sp] = c_a
         r = mech.rates(c, th, np.full(len(c_a), T), act)
         if starve.any():
-            half = STARVED_PPM * 1e-6 * p / (R_GAS * T)
-            f = c_a[:, None, :] / (c_a[:, None, :] + half)        # [rows, 1, na]
+            f = c_a[:, None, :] / (c_a[:, None, :] + reactor.starved_half(T))   # [rows, 1, na]
             r = r * np.prod(np.where(starve[None], f, 1.0), axis=2)
         return r
 
@@ -227,14 +238,14 @@ def _timed(reactor, exp, coverage: bool = False, compiled: bool = True) -> Predi
             def rhs_c(t, y):
                 evals[0] += 1
                 T = T_of(t)
-                return kernel.rhs(y, N, c_in_of(t), T, F * R_GAS * T / p, Vg, Vc, omega,
-                                  STARVED_PPM * 1e-6 * p / (R_GAS * T))
+                return kernel.rhs(y, N, c_in_of(t), T, reactor.flow_m3_s(T), Vg, Vc, omega,
+                                  reactor.starved_half(T))
 
             def jac_c(t, y):
                 evals[0] += 1
                 T = T_of(t)
-                return kernel.jacobian(y, N, c_in_of(t), T, F * R_GAS * T / p, Vg, Vc, omega,
-                                       STARVED_PPM * 1e-6 * p / (R_GAS * T))
+                return kernel.jacobian(y, N, c_in_of(t), T, reactor.flow_m3_s(T), Vg, Vc,
+                                       omega, reactor.starved_half(T))
             return rhs_c, jac_c
 
         def rhs(t, y):
@@ -243,8 +254,7 @@ def _timed(reactor, exp, coverage: bool = False, compiled: bool = True) -> Predi
             c, th = split(y)
             r = local_rates(c, th, T, c_in)
             up = np.vstack([c_in[act_sp][None], c[:-1]])
-            Q = F * R_GAS * T / p
-            dc = (Q * (up - c) + Vc * (r @ nu_a)) / Vg
+            dc = (reactor.flow_m3_s(T) * (up - c) + Vc * (r @ nu_a)) / Vg
             dth = (r @ nu_s) / omega
             return np.concatenate([dc.ravel(), dth.ravel()])
 
@@ -252,7 +262,7 @@ def _timed(reactor, exp, coverage: bool = False, compiled: bool = True) -> Predi
             evals[0] += 1
             T, c_in = T_of(t), c_in_of(t)
             return _tanks_jacobian(y, N, na, ns, lambda c, th: local_rates(c, th, T, c_in),
-                                   nu_a, nu_s, F * R_GAS * T / p, Vg, Vc, omega)
+                                   nu_a, nu_s, reactor.flow_m3_s(T), Vg, Vc, omega)
         return rhs, jac
 
     def integrate(funcs, y0, t_span, t_eval=None):

@@ -29,8 +29,8 @@ _jit = njit(cache=CACHED, nogil=True)
 
 
 @_jit
-def _tank_rates(st, fl, c_a, th, c_fixed, film_act, T, starve, half, W_kT, W_kinv, W_inhK,
-                W_dH, W_Deff, W_Dm, xloc, r, row):
+def _tank_rates(st, c_a, th, c_fixed, film_act, T, starve, half, W_kT, W_kinv, W_inhK, W_Deff,
+                xloc, r, row):
     """Rates of one tank (active gas ``c_a`` [na], coverages ``th`` [ns]) into ``r[row]``;
     the temperature pieces (``W_*``) must hold those of ``T``."""
     nf = st.nf
@@ -60,8 +60,8 @@ def rhs(st, fl, y, N, c_in, c_fixed, film_act, T, Q, Vg, Vc, omega, nu_a, nu_s, 
     for k in range(N):
         g0 = k * na
         s0 = N * na + k * ns
-        _tank_rates(st, fl, y[g0:g0 + na], y[s0:s0 + ns], c_fixed, film_act, T, starve, half,
-                    W_kT, W_kinv, W_inhK, W_dH, W_Deff, W_Dm, xloc, r, 0)
+        _tank_rates(st, y[g0:g0 + na], y[s0:s0 + ns], c_fixed, film_act, T, starve, half,
+                    W_kT, W_kinv, W_inhK, W_Deff, xloc, r, 0)
         for a in range(na):
             up = c_in[a] if k == 0 else y[g0 - na + a]
             src = 0.0
@@ -99,8 +99,8 @@ def jacobian(st, fl, y, N, c_fixed, film_act, T, Q, Vg, Vc, omega, nu_a, nu_s, s
             loc[a] = y[g0 + a]
         for s in range(ns):
             loc[na + s] = y[s0 + s]
-        _tank_rates(st, fl, loc[:na], loc[na:], c_fixed, film_act, T, starve, half, W_kT,
-                    W_kinv, W_inhK, W_dH, W_Deff, W_Dm, xloc, r, 0)
+        _tank_rates(st, loc[:na], loc[na:], c_fixed, film_act, T, starve, half, W_kT,
+                    W_kinv, W_inhK, W_Deff, xloc, r, 0)
         for v in range(m):
             x0 = loc[v]
             if v < na:
@@ -110,8 +110,8 @@ def jacobian(st, fl, y, N, c_fixed, film_act, T, Q, Vg, Vc, omega, nu_a, nu_s, s
                 if x0 > 0.5:
                     h = -h
             loc[v] = x0 + h
-            _tank_rates(st, fl, loc[:na], loc[na:], c_fixed, film_act, T, starve, half, W_kT,
-                        W_kinv, W_inhK, W_dH, W_Deff, W_Dm, xloc, r, 1)
+            _tank_rates(st, loc[:na], loc[na:], c_fixed, film_act, T, starve, half, W_kT,
+                        W_kinv, W_inhK, W_Deff, xloc, r, 1)
             loc[v] = x0
             col = g0 + v if v < na else s0 + (v - na)
             for a in range(na):

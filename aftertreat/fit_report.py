@@ -116,6 +116,7 @@ def print_fit(res, written: Path | None, folder: str | None) -> None:
     from rich.console import Console
     from rich.table import Table
     from .cli import escape
+    from .fit import _holds
     con = Console()
     spec = res.spec
     con.print(f"[bold]{escape(spec.title)}[/bold]  ({escape(spec.file)})")
@@ -158,7 +159,6 @@ def print_fit(res, written: Path | None, folder: str | None) -> None:
         for c in ("quantity", "at", "target", "model", "holds"):
             P.add_column(c, justify="left" if c in ("quantity", "at", "holds") else "right")
         for t, m in zip(e.targets, e.model):
-            from .fit import _holds
             at = f"site {t.site}" if t.site else f"{t.T_K - ZERO_C_K:.0f} degC" + (
                 " (difference)" if t.minus is not None else "")
             P.add_row(t.quantity, at, f"{t.sense} {t.value:g} +- {t.sigma:g}", f"{m:.2f}",

@@ -35,7 +35,7 @@ from pathlib import Path
 import numpy as np
 
 from .case import _unknown
-from .checks import number
+from .checks import choice, number
 from .errors import InputError, did_you_mean
 from .species import INDEX
 from .units import ZERO_C_K
@@ -176,10 +176,7 @@ def read_experiment(spec: dict, i: int, base: Path, file: str,
     if not isinstance(spec, dict):
         raise InputError("expected an [[experiment]] table", key=pre, file=file)
     _unknown(spec, _EXPERIMENT_KEYS, file, f"{pre}.")
-    kind = spec.get("kind")
-    if kind not in KINDS:
-        raise InputError(f"expected one of {', '.join(KINDS)}" + did_you_mean(str(kind), KINDS),
-                         key=f"{pre}.kind", value=kind, file=file)
+    kind = choice(spec.get("kind"), KINDS, f"{pre}.kind", file)
     name = str(spec.get("name", f"experiment {i + 1}"))
     data = spec.get("data")
     if not isinstance(data, str):

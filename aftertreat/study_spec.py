@@ -705,10 +705,10 @@ def _check_against_case(data, file, actions, base_train, where: dict) -> None:
     turning a refusal into one error naming the study item."""
     from .cyclecase import parse_run_case
     base = strip_study(data)
+    method = (base.get("dosing") or {}).get("method", "none")
     for name, paths, how, mode, unit, n_modes, values in actions:
         key = where[name]
         for path in paths:
-            method = (base.get("dosing") or {}).get("method", "none")
             if path == "dosing.ANR" and method == "none" and not any(
                     "dosing.method" in a[1] for a in actions):
                 # the case would accept it and every sample would be the same: a study input
